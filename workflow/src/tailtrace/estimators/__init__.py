@@ -1,0 +1,1 @@
+"""Estimators of VaR and ES sharing one contract (see :mod:`.base`)."""
