@@ -1,0 +1,127 @@
+# Helpers shared by every rule: paths, parameter slices, code versions.
+import json
+from importlib import metadata
+from pathlib import Path
+
+from tailtrace.hashing import source_hash
+
+SRC = Path(workflow.basedir) / "workflow" / "src" / "tailtrace"
+DATA = Path(config["data_dir"])
+RESULTS = Path(config["results_dir"])
+SAFE_NAME = "[A-Za-z0-9][A-Za-z0-9_.-]*"
+
+
+wildcard_constraints:
+    name=SAFE_NAME,
+
+
+def data_path(key):
+    """Input file named in config['inputs'][key], resolved inside data_dir."""
+    raw = Path(config["inputs"][key])
+    resolved = (DATA / raw).resolve()
+    if not config["allow_outside_paths"] and not resolved.is_relative_to(DATA.resolve()):
+        raise ValueError(
+            f"config inputs.{key}={raw} points outside data_dir {DATA}; "
+            "set allow_outside_paths: true to allow it"
+        )
+    return str(DATA / raw) if not raw.is_absolute() else str(raw)
+
+
+def result_path(*parts):
+    return str(RESULTS.joinpath(*parts))
+
+
+def log_path(rule, *parts):
+    return result_path("logs", rule, *parts) if parts else result_path("logs", f"{rule}.log")
+
+
+def bench_path(rule, *parts):
+    return result_path("benchmarks", rule, *parts) if parts else result_path("benchmarks", f"{rule}.tsv")
+
+
+def prov_path(rule, *parts):
+    return result_path("provenance", rule, *parts) if parts else result_path("provenance", f"{rule}.json")
+
+
+def price_names():
+    """Stems of the price files; each is ingested by its own job."""
+    folder = Path(data_path("prices_dir"))
+    names = sorted(p.stem for p in folder.glob("*.csv"))
+    if not names:
+        raise ValueError(f"no price files (*.csv) in {folder}")
+    import re
+
+    bad = [n for n in names if not re.fullmatch(SAFE_NAME, n)]
+    if bad:
+        raise ValueError(f"price file name {bad[0]!r} in {folder}: use letters, digits, '_', '-' or '.'")
+    return names
+
+
+def positions_files():
+    """positions.csv (if present) plus every dated positions/<YYYY-MM-DD>.csv."""
+    files = []
+    undated = Path(data_path("positions"))
+    if undated.exists():
+        files.append(str(undated))
+    folder = Path(data_path("positions_dir"))
+    if folder.is_dir():
+        files += sorted(str(p) for p in folder.glob("*.csv"))
+    if not files:
+        raise ValueError(f"no positions: neither {undated} nor {folder}/<YYYY-MM-DD>.csv exists")
+    return files
+
+
+def code_version(*modules):
+    """Hash of the package modules a rule runs (Snakemake does not track imports)."""
+    paths = []
+    for m in modules:
+        target = SRC / m
+        paths += sorted(target.rglob("*.py")) if target.is_dir() else [target.with_suffix(".py")]
+    return source_hash(paths)
+
+
+def lib_versions(*names):
+    return ",".join(f"{n}={metadata.version(n)}" for n in names)
+
+
+def as_json(value):
+    """Stable text for a params slice (dict order never causes a rerun)."""
+    return json.dumps(value, sort_keys=True)
+
+
+def method_options(method):
+    return as_json(config.get(method, {}))
+
+
+def method_seed(method):
+    section = config.get(method, {})
+    return int(section.get("seed", config["seed"]))
+
+
+def estimator_modules(method):
+    from tailtrace.estimators.registry import METHODS
+
+    mod = METHODS[method][0].removeprefix("tailtrace.")
+    return ("estimators/base", "estimators/tail", "estimators/registry", mod.replace(".", "/"))
+
+
+def estimate_files():
+    return [result_path("estimates", f"{m}.parquet") for m in config["methods"]]
+
+
+def quality_files():
+    return [result_path("quality", f"{n}.parquet") for n in price_names()] + [result_path("quality", "filled.parquet")]
+
+
+def record_files():
+    rules = ["ingest_instruments", "ingest_positions", "build_returns", "build_scenarios"]
+    rules += [f"estimate_{m}" for m in config["methods"]]
+    return [prov_path(r) for r in rules] + [prov_path("ingest_prices", f"{n}.json") for n in price_names()]
+
+
+def market_outputs():
+    return {k: result_path("market", f"{k}.parquet") for k in ("local", "base", "observed", "returns")}
+
+
+def config_snapshot():
+    return as_json(config)

@@ -1,0 +1,43 @@
+# Steps 2-3: align calendars and take returns; value today's book under them.
+
+
+rule build_returns:
+    input:
+        prices=expand(result_path("prices", "{name}.parquet"), name=price_names()),
+        instruments=rules.ingest_instruments.output.instruments,
+    output:
+        **market_outputs(),
+        filled=result_path("quality", "filled.parquet"),
+        prov=prov_path("build_returns"),
+    log:
+        log_path("build_returns"),
+    benchmark:
+        bench_path("build_returns")
+    params:
+        base_currency=config["base_currency"],
+        max_fill_days=config["returns"]["max_fill_days"],
+        instruments_file=data_path("instruments"),
+        code=code_version("market", "ingest", "reference", "errors", "pipeline", "provenance"),
+    script:
+        "../scripts/build_returns.py"
+
+
+rule build_scenarios:
+    input:
+        **market_outputs(),
+        positions=rules.ingest_positions.output.positions,
+    output:
+        exposures=result_path("scenarios", "exposures.parquet"),
+        pnl=result_path("scenarios", "pnl.parquet"),
+        prov=prov_path("build_scenarios"),
+    log:
+        log_path("build_scenarios"),
+    benchmark:
+        bench_path("build_scenarios")
+    params:
+        as_of=as_json(config["as_of"]),
+        window_days=config["window_days"],
+        positions_file=data_path("positions"),
+        code=code_version("scenarios", "market", "estimators/base", "errors", "pipeline", "provenance"),
+    script:
+        "../scripts/build_scenarios.py"

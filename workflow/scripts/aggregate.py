@@ -1,0 +1,23 @@
+"""Glue for rule aggregate."""
+import json
+
+from tailtrace.provenance import setup_logging
+
+setup_logging(snakemake)  # noqa: F821 (injected by Snakemake)
+
+from tailtrace.aggregate import aggregate  # noqa: E402
+
+
+def main(smk) -> None:
+    receipt = aggregate(
+        smk.params.database,
+        figure_files=list(smk.input.figures),
+        quality_files=list(smk.input.quality),
+        record_files=list(smk.input.records),
+        config_snapshot=json.loads(smk.params.config),
+    )
+    with open(smk.output.receipt, "w") as fh:
+        json.dump(receipt, fh, indent=1, sort_keys=True)
+
+
+main(snakemake)  # noqa: F821

@@ -1,0 +1,170 @@
+"""Align price series on one calendar, convert to base currency, take returns."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Sequence
+
+import numpy as np
+import pyarrow as pa
+
+from .errors import InputError
+from .ingest import QUALITY_SCHEMA
+from .reference import fx_instrument
+
+__all__ = ["MarketData", "build_market", "forward_fill_limited", "market_to_tables", "market_from_tables"]
+
+
+@dataclass(frozen=True)
+class MarketData:
+    """Aligned market data.
+
+    Attributes
+    ----------
+    dates : (D,) datetime64[D], the union calendar of all price files
+    instruments : tuple of str
+    local : (D, N) closes in each instrument's own currency (NaN where missing)
+    base : (D, N) closes converted to the base currency
+    observed : (D, N) bool, True where the close was in a file (not filled)
+    log_returns : (D, N) daily log returns of ``base``; row 0 is NaN
+    """
+
+    dates: np.ndarray
+    instruments: tuple[str, ...]
+    local: np.ndarray
+    base: np.ndarray
+    observed: np.ndarray
+    log_returns: np.ndarray
+
+    def column(self, instrument: str) -> int:
+        return self.instruments.index(instrument)
+
+
+def forward_fill_limited(values: np.ndarray, limit: int) -> np.ndarray:
+    """Carry the last observation forward down axis 0, at most ``limit`` rows.
+
+    Leading NaNs stay NaN; a gap longer than ``limit`` is filled only for its
+    first ``limit`` rows.
+    """
+    valid = ~np.isnan(values)
+    rows = np.arange(values.shape[0])[:, None]
+    last = np.maximum.accumulate(np.where(valid, rows, -1), axis=0)
+    age = rows - last
+    take = np.clip(last, 0, None)
+    filled = np.take_along_axis(values, take, axis=0)
+    return np.where((last >= 0) & (age <= limit), filled, np.nan)
+
+
+def build_market(
+    prices: Sequence[tuple[str, pa.Table]],
+    instruments: pa.Table,
+    *,
+    base_currency: str,
+    max_fill_days: int,
+    instruments_file: str = "instruments.csv",
+) -> tuple[MarketData, pa.Table]:
+    """Combine ingested price tables into aligned base-currency series.
+
+    Parameters
+    ----------
+    prices : (file name, table with date, instrument, close) per price file
+    instruments : validated instruments table (with its ``row`` column)
+    base_currency : ISO code of the reporting currency
+    max_fill_days : longest run of missing dates carried forward
+
+    Returns
+    -------
+    market : MarketData
+    filled : data-quality rows listing the dates carried forward
+
+    Notes
+    -----
+    Missing-data policy: the calendar is the union of dates in all files. A
+    missing close is carried forward for at most ``max_fill_days`` dates (its
+    return is then zero and the move lands on the next real price); longer
+    gaps stay missing, and a window that needs them fails loudly later.
+    """
+    seen: dict[str, str] = {}
+    for name, table in prices:
+        for inst in set(table.column("instrument").to_pylist()):
+            if inst in seen:
+                raise InputError(f"instrument also priced in {seen[inst]}; each instrument must come from one file",
+                                 file=name, column="instrument", value=inst)
+            seen[inst] = name
+    names = tuple(sorted(seen))
+    if not names:
+        raise InputError("no prices in any file", file=", ".join(n for n, _ in prices) or "prices/")
+    all_dates = np.concatenate([t.column("date").to_numpy().astype("datetime64[D]") for _, t in prices])
+    dates = np.unique(all_dates)
+    local = np.full((len(dates), len(names)), np.nan)
+    position = {n: i for i, n in enumerate(names)}
+    for _, table in prices:
+        d = np.searchsorted(dates, table.column("date").to_numpy().astype("datetime64[D]"))
+        c = np.array([position[i] for i in table.column("instrument").to_pylist()], dtype=int)
+        local[d, c] = table.column("close").to_numpy()
+    observed = ~np.isnan(local)
+    local = forward_fill_limited(local, max_fill_days)
+
+    meta_inst = instruments.column("instrument").to_pylist()
+    meta_ccy = dict(zip(meta_inst, instruments.column("currency").to_pylist()))
+    meta_row = dict(zip(meta_inst, instruments.column("row").to_pylist()))
+    fx_rate = np.ones_like(local)
+    for j, inst in enumerate(names):
+        ccy = meta_ccy[inst]
+        if inst.startswith("FX.") and ccy != base_currency:
+            raise InputError(f"an FX series must be priced in the base currency {base_currency}", file=instruments_file,
+                             row=meta_row[inst], column="currency", value=ccy)
+        if ccy == base_currency:
+            continue
+        fx = fx_instrument(ccy)
+        if fx not in position:
+            raise InputError(f"no FX series {fx} to convert {ccy} to {base_currency}; add it to a price file",
+                             file=instruments_file, row=meta_row[inst], column="currency", value=ccy)
+        fx_rate[:, j] = local[:, position[fx]]
+    base = local * fx_rate
+    with np.errstate(invalid="ignore", divide="ignore"):
+        log_base = np.log(base)
+    log_returns = np.full_like(base, np.nan)
+    log_returns[1:] = np.diff(log_base, axis=0)
+
+    filled_mask = ~observed & ~np.isnan(local)
+    rows = []
+    for j in np.flatnonzero(filled_mask.any(axis=0)):
+        idx = np.flatnonzero(filled_mask[:, j])
+        rows.append(dict(file=seen[names[j]], instrument=names[j], check="filled", first_date=dates[idx[0]].item(),
+                         last_date=dates[idx[-1]].item(), n=len(idx),
+                         detail=f"{len(idx)} missing date(s) carried forward (limit {max_fill_days})", severity="info"))
+    filled = pa.Table.from_pylist(rows, schema=QUALITY_SCHEMA) if rows else QUALITY_SCHEMA.empty_table()
+    market = MarketData(dates=dates, instruments=names, local=local, base=base, observed=observed, log_returns=log_returns)
+    return market, filled
+
+
+def market_to_tables(market: MarketData) -> dict[str, pa.Table]:
+    """Wide tables (date + one column per instrument) for Parquet."""
+    def wide(matrix: np.ndarray) -> pa.Table:
+        cols = {"date": pa.array(market.dates, type=pa.date32())}
+        cols.update({n: pa.array(matrix[:, j], type=pa.float64()) for j, n in enumerate(market.instruments)})
+        return pa.table(cols)
+
+    return {
+        "local": wide(market.local),
+        "base": wide(market.base),
+        "observed": wide(market.observed.astype(float)),
+        "returns": wide(market.log_returns),
+    }
+
+
+def market_from_tables(tables: dict[str, pa.Table]) -> MarketData:
+    """Inverse of :func:`market_to_tables`."""
+    def matrix(t: pa.Table) -> np.ndarray:
+        return np.column_stack([t.column(c).to_numpy() for c in t.column_names[1:]]) if t.num_columns > 1 else np.empty((t.num_rows, 0))
+
+    ref = tables["base"]
+    return MarketData(
+        dates=ref.column("date").to_numpy().astype("datetime64[D]"),
+        instruments=tuple(ref.column_names[1:]),
+        local=matrix(tables["local"]),
+        base=matrix(ref),
+        observed=matrix(tables["observed"]).astype(bool),
+        log_returns=matrix(tables["returns"]),
+    )

@@ -1,0 +1,186 @@
+"""One function per pipeline step; the Snakemake scripts only call these."""
+
+from __future__ import annotations
+
+import json
+import logging
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute  # noqa: F401  (pa.compute)
+import pyarrow.parquet as pq
+
+from .errors import InputError
+from .ingest import quality_checks, read_price_file
+from .market import MarketData, build_market, market_to_tables
+from .reference import read_instruments, read_positions
+
+__all__ = [
+    "write_parquet",
+    "ingest_instruments",
+    "ingest_positions",
+    "ingest_prices",
+    "build_returns",
+    "build_scenarios",
+    "run_estimator",
+    "load_returns",
+    "as_of_seed",
+    "parse_json_param",
+]
+
+log = logging.getLogger("tailtrace")
+
+
+def write_parquet(table: pa.Table, path: str | Path, metadata: Mapping[str, str] | None = None) -> None:
+    """Write Parquet deterministically (no pandas metadata, fixed options)."""
+    if metadata:
+        merged = dict(table.schema.metadata or {})
+        merged.update({k.encode(): v.encode() for k, v in metadata.items()})
+        table = table.replace_schema_metadata(merged)
+    Path(path).parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(f"{path}.partial")
+    pq.write_table(table, tmp, compression="zstd", row_group_size=1 << 20)
+    tmp.replace(path)
+
+
+def ingest_instruments(path: str, out: str) -> None:
+    table = read_instruments(path)
+    write_parquet(table, out, {"tailtrace.source": str(path)})
+    log.info("instruments: %d rows from %s", table.num_rows, path)
+
+
+def _position_date(path: Path) -> str | None:
+    try:
+        np.datetime64(path.stem, "D")
+    except ValueError:
+        return None
+    return path.stem
+
+
+def ingest_positions(paths: Sequence[str], instruments: str, out: str) -> None:
+    """Validate every positions file into one table with its source and date.
+
+    The undated file (positions.csv) applies to every as_of without a dated
+    file positions/<YYYY-MM-DD>.csv.
+    """
+    known = pq.read_table(instruments, columns=["instrument"]).column("instrument").to_pylist()
+    parts = []
+    for p in sorted(paths):
+        table = read_positions(p, known)
+        day = _position_date(Path(p))
+        parts.append(table.append_column("source", pa.array([str(p)] * table.num_rows, pa.string()))
+                     .append_column("positions_date", pa.array([day] * table.num_rows, pa.string())))
+    write_parquet(pa.concat_tables(parts), out)
+
+
+def ingest_prices(path: str, instruments: str, out_prices: str, out_quality: str, *, stale_days: int) -> None:
+    known = pq.read_table(instruments, columns=["instrument"]).column("instrument").to_pylist()
+    prices, extra = read_price_file(path, known)
+    write_parquet(prices, out_prices, {"tailtrace.source": str(path)})
+    quality = quality_checks(prices, str(path), stale_days=stale_days, extra_columns=extra)
+    write_parquet(quality, out_quality)
+    log.info("%s: %d rows, %d instruments, %d quality notes", path, prices.num_rows,
+             len(set(prices.column("instrument").to_pylist())), quality.num_rows)
+
+
+def build_returns(price_files: Sequence[str], instruments: str, outputs: Mapping[str, str], *,
+                  base_currency: str, max_fill_days: int, instruments_file: str) -> None:
+    """Align all ingested prices and write base prices, flags and log returns."""
+    tables = []
+    for p in sorted(price_files):
+        t = pq.read_table(p)
+        source = (t.schema.metadata or {}).get(b"tailtrace.source", p.encode()).decode()
+        tables.append((source, t))
+    market, filled = build_market(tables, pq.read_table(instruments), base_currency=base_currency,
+                                  max_fill_days=max_fill_days, instruments_file=instruments_file)
+    for key, table in market_to_tables(market).items():
+        write_parquet(table, outputs[key])
+    write_parquet(filled, outputs["filled"])
+
+
+def load_returns(path: str) -> MarketData:
+    """Market data holding just the calendar and log returns (what estimators need)."""
+    table = pq.read_table(path)
+    matrix = np.column_stack([table.column(c).to_numpy() for c in table.column_names[1:]])
+    return MarketData(dates=table.column("date").to_numpy().astype("datetime64[D]"),
+                      instruments=tuple(table.column_names[1:]), local=None, base=None, observed=None,
+                      log_returns=matrix)
+
+
+def _positions_for(positions: pa.Table, as_of: np.datetime64, default_file: str) -> tuple[pa.Table, str]:
+    day = str(np.datetime64(as_of, "D"))
+    dated = positions.filter(pa.compute.equal(positions.column("positions_date"), day))
+    if dated.num_rows:
+        return dated, str(dated.column("source")[0])
+    undated = positions.filter(pa.compute.is_null(positions.column("positions_date")))
+    if undated.num_rows == 0:
+        raise InputError(f"no positions for as_of {day}: neither a dated file {day}.csv nor the undated file",
+                         file=default_file)
+    return undated, str(undated.column("source")[0])
+
+
+def build_scenarios(market_files: Mapping[str, str], positions: str, outputs: Mapping[str, str], *,
+                    as_of: Any, window_days: int, positions_file: str) -> list[str]:
+    """Resolve as_of dates, value today's holdings, write exposures and 1-day P&L."""
+    from .market import market_from_tables
+    from .scenarios import Holdings, build_sample, exposures_table, pnl_table, resolve_as_of
+
+    market = market_from_tables({k: pq.read_table(market_files[k]) for k in ("local", "base", "observed", "returns")})
+    pos = pq.read_table(positions)
+    held = sorted(set(pos.column("instrument").to_pylist()))
+    missing = [i for i in held if i not in market.instruments]
+    if missing:
+        rows = pos.filter(pa.compute.equal(pos.column("instrument"), missing[0]))
+        raise InputError("position in an instrument that has no prices in any price file",
+                         file=str(rows.column("source")[0]), row=int(rows.column("row")[0].as_py()),
+                         column="instrument", value=missing[0])
+    dates = resolve_as_of(as_of, market, held)
+    exposures, pnls = [], []
+    for day in dates:  # a handful of as_of dates; each step is vectorised
+        part, source = _positions_for(pos, day, positions_file)
+        holdings = Holdings.from_table(day, part, source)
+        exp = exposures_table(holdings, market)
+        sample = build_sample(market, exp, day, window_days)
+        exposures.append(exp)
+        pnls.append(pnl_table(sample))
+    write_parquet(pa.concat_tables(exposures), outputs["exposures"])
+    write_parquet(pa.concat_tables(pnls), outputs["pnl"])
+    return [str(d) for d in dates]
+
+
+def as_of_seed(seed: int, as_of: np.datetime64) -> np.random.Generator:
+    """A Generator for one as_of: figures of a date do not depend on the other dates run."""
+    day = int(np.datetime64(as_of, "D").astype(np.int64))
+    return np.random.default_rng(np.random.SeedSequence([int(seed), day]))
+
+
+def run_estimator(returns: str, exposures: str, out: str, *, method: str, confidences: Sequence[float],
+                  horizons: Sequence[int], window_days: int, options: Mapping[str, Any], seed: int,
+                  currency: str) -> dict[str, Any]:
+    """Run one method for every as_of in the exposures file."""
+    from .estimators.registry import get_estimator
+    from .figures import estimate_table
+    from .scenarios import build_sample
+
+    estimator = get_estimator(method)
+    market = load_returns(returns)
+    exp = pq.read_table(exposures)
+    days = sorted(set(exp.column("as_of").to_numpy().astype("datetime64[D]")))
+    tables, notes = [], {}
+    for day in days:
+        sample = build_sample(market, exp, day, window_days)
+        result = estimator(sample, confidences, horizons, options=options, seed=as_of_seed(seed, day))
+        tables.append(estimate_table(result, as_of=day, portfolios=sample.portfolios, method=method,
+                                     confidences=confidences, horizons=horizons, currency=currency))
+        notes[str(day)] = {"window_first": str(sample.dates[0]), "window_last": str(sample.dates[-1]),
+                           "n_obs": sample.n_obs}
+    write_parquet(pa.concat_tables(tables), out)
+    return notes
+
+
+def parse_json_param(value: str | Mapping[str, Any]) -> Any:
+    return json.loads(value) if isinstance(value, str) else value
+
+
