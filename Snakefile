@@ -1,7 +1,10 @@
 # tailtrace: price files -> validated Parquet -> returns -> estimators -> DuckDB.
 from pathlib import Path
 
+import yaml
 from snakemake.utils import min_version, validate
+
+from tailtrace.configuration import coerce_cli_values
 
 min_version("9.0")
 
@@ -9,7 +12,9 @@ min_version("9.0")
 configfile: str(Path(workflow.basedir) / "config" / "config.yaml")
 
 
-validate(config, str(Path(workflow.basedir) / "workflow" / "schemas" / "config.schema.yaml"))
+CONFIG_SCHEMA = Path(workflow.basedir) / "workflow" / "schemas" / "config.schema.yaml"
+coerce_cli_values(config, yaml.safe_load(CONFIG_SCHEMA.read_text()))
+validate(config, str(CONFIG_SCHEMA))
 
 
 include: "workflow/rules/common.smk"
