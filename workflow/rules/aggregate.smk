@@ -16,6 +16,9 @@ rule aggregate:
         log_path("aggregate"),
     benchmark:
         bench_path("aggregate")
+    resources:
+        mem_mb=2000,
+        runtime=20,
     params:
         database=result_path("risk.duckdb"),
         config=config_snapshot(),

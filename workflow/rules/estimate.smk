@@ -15,6 +15,9 @@ for _method in config["methods"]:
             log_path(f"estimate_{_method}"),
         benchmark:
             bench_path(f"estimate_{_method}")
+        resources:
+            mem_mb=4000,
+            runtime=30,
         params:
             method=_method,
             confidences=config["confidences"],

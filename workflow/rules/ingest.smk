@@ -11,6 +11,9 @@ rule ingest_instruments:
         log_path("ingest_instruments"),
     benchmark:
         bench_path("ingest_instruments")
+    resources:
+        mem_mb=1000,
+        runtime=10,
     params:
         code=code_version("csvread", "reference", "errors", "pipeline", "provenance"),
     script:
@@ -28,6 +31,9 @@ rule ingest_positions:
         log_path("ingest_positions"),
     benchmark:
         bench_path("ingest_positions")
+    resources:
+        mem_mb=1000,
+        runtime=10,
     params:
         code=code_version("csvread", "reference", "errors", "pipeline", "provenance"),
     script:
@@ -46,6 +52,9 @@ rule ingest_prices:
         log_path("ingest_prices", "{name}.log"),
     benchmark:
         bench_path("ingest_prices", "{name}.tsv")
+    resources:
+        mem_mb=1000,
+        runtime=10,
     params:
         stale_days=config["data_quality"]["stale_days"],
         code=code_version("csvread", "ingest", "errors", "pipeline", "provenance"),

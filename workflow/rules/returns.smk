@@ -13,6 +13,9 @@ rule build_returns:
         log_path("build_returns"),
     benchmark:
         bench_path("build_returns")
+    resources:
+        mem_mb=4000,
+        runtime=20,
     params:
         base_currency=config["base_currency"],
         max_fill_days=config["returns"]["max_fill_days"],
@@ -34,6 +37,9 @@ rule build_scenarios:
         log_path("build_scenarios"),
     benchmark:
         bench_path("build_scenarios")
+    resources:
+        mem_mb=4000,
+        runtime=20,
     params:
         as_of=as_json(config["as_of"]),
         window_days=config["window_days"],
