@@ -58,7 +58,7 @@ __all__ = [
 ]
 
 BASE_CURRENCY = "EUR"
-DEFAULT_SEED = 20_240_424
+DEFAULT_SEED = 20_240_238
 DEMO_START = "2018-01-02"
 DEMO_END = "2024-12-31"
 # Month-day of the holidays on which no venue in the scenario publishes a close.
@@ -68,19 +68,21 @@ HOLIDAYS_MMDD = ("01-01", "12-25", "12-26")
 FACTORS = ("equity_global", "equity_eur", "equity_usd", "rates", "fx_usd", "commodity")
 _G = FACTORS.index("equity_global")
 
-# GARCH(1,1) persistence and Student-t degrees of freedom per factor. With
-# nu = 5 (innovation kurtosis 9) beta^2 + 2 alpha beta + 9 alpha^2 < 1 keeps
-# the fourth moment finite, so sample kurtosis is a stable statistic.
+# GARCH(1,1) (alpha, beta) and Student-t degrees of freedom per factor. Each
+# keeps beta^2 + 2 alpha beta + k alpha^2 < 1 (k = 3 + 6 / (nu - 4), the
+# innovation kurtosis), so the fourth moment is finite and sample kurtosis and
+# autocorrelation of squares are stable statistics.
 _FACTOR_GARCH = {
     "equity_global": (0.07, 0.91, 5.0),
     "equity_eur": (0.06, 0.92, 5.0),
     "equity_usd": (0.06, 0.92, 5.0),
-    "rates": (0.07, 0.91, 6.0),
-    "fx_usd": (0.06, 0.92, 6.0),
+    "rates": (0.09, 0.89, 8.0),
+    "fx_usd": (0.08, 0.90, 8.0),
     "commodity": (0.07, 0.91, 5.0),
 }
 _IDIO_GARCH = (0.06, 0.92, 5.0)
 _BURN_IN = 250
+_STR = np.dtypes.StringDType()  # variable-width strings: less memory than "U"
 _TRADING_DAYS = 252
 
 
@@ -93,9 +95,10 @@ class InstrumentSpec:
     name, asset_class, currency : str
         Row of ``instruments.csv``; the price is in ``currency``.
     annual_vol : float
-        Normal-times volatility of daily log returns, annualised with 252
-        days. Realised volatility is higher: episodes and GARCH clustering
-        add to it.
+        Realised volatility of the instrument's daily log-return noise over
+        the whole simulated sample, annualised with 252 days (the noise is
+        rescaled to it; drifts add a little). Episodes and GARCH clustering
+        shape when the volatility comes, not how much there is in total.
     loadings : mapping of str to float
         Loading on each factor of :data:`FACTORS` (missing ones are 0); the
         squared loadings sum to the systematic share of variance (< 1), the
@@ -129,8 +132,9 @@ class Episode:
     vol_multiplier : float
         Peak multiplier of volatility.
     equity_drop : float
-        Fall of the average equity over the episode, as a fraction (0.30 is
-        a 30 % fall), imposed through the global equity factor.
+        Peak-to-trough fall, as a fraction (0.30 is 30 %), of the
+        equal-weighted equities (mean of their log returns) inside the
+        episode, reached by a drift through the global equity factor.
     correlation_boost : float
         Share of each equity's idiosyncratic variance moved onto the global
         equity factor at the peak (0 keeps correlations, 1 makes them 1).
@@ -145,8 +149,8 @@ class Episode:
 
 
 DEMO_EPISODES = (
-    Episode("sell-off", "2019-08-01", "2019-08-30", 1.8, 0.05, 0.3),
-    Episode("crisis", "2022-02-14", "2022-05-31", 3.5, 0.18, 0.7),
+    Episode("sell-off", "2019-08-01", "2019-08-30", 1.8, 0.08, 0.3),
+    Episode("crisis", "2022-02-14", "2022-05-31", 3.5, 0.30, 0.7),
 )
 
 # Which instruments go to which price file (files named after their source).
@@ -238,6 +242,11 @@ class DemoSummary:
         return "\n".join(lines)
 
 
+def _in_window(dates: np.ndarray, first: str, last: str) -> np.ndarray:
+    """Mask of ``dates`` from ``first`` to ``last`` (ISO), both included."""
+    return (dates >= np.datetime64(first)) & (dates <= np.datetime64(last))
+
+
 def business_calendar(
     start: str,
     end: str | None = None,
@@ -296,18 +305,18 @@ def demo_universe() -> tuple[InstrumentSpec, ...]:
     """
     eq = "equity"
     return (
-        InstrumentSpec("EQ.VELMARSK", eq, "EUR", 0.19, {"equity_global": 0.55, "equity_eur": 0.45}, 0.07, 84.0),
-        InstrumentSpec("EQ.QUORVENTA", eq, "EUR", 0.165, {"equity_global": 0.45, "equity_eur": 0.45, "rates": 0.15}, 0.05, 21.5),
-        InstrumentSpec("EQ.OSTRELLIN", eq, "EUR", 0.245, {"equity_global": 0.6, "equity_eur": 0.45, "rates": -0.15}, 0.06, 12.8),
-        InstrumentSpec("EQ.KARVENHOLT", eq, "EUR", 0.215, {"equity_global": 0.55, "equity_eur": 0.4}, 0.07, 146.0),
-        InstrumentSpec("EQ.TALLOWMERE", eq, "USD", 0.25, {"equity_global": 0.55, "equity_usd": 0.45}, 0.10, 212.0),
-        InstrumentSpec("EQ.SPARROWDYNE", eq, "USD", 0.22, {"equity_global": 0.55, "equity_usd": 0.4, "commodity": 0.1}, 0.07, 57.3),
-        InstrumentSpec("EQ.GRISTVALE", eq, "USD", 0.17, {"equity_global": 0.45, "equity_usd": 0.4}, 0.06, 38.9),
-        InstrumentSpec("FUT.VALDORIA20", "equity_index_future", "EUR", 0.165, {"equity_global": 0.7, "equity_eur": 0.66}, 0.06, 3400.0),
-        InstrumentSpec("CMD.BASEMETAL", "commodity", "USD", 0.27, {"equity_global": 0.3, "fx_usd": -0.1, "commodity": 0.85}, 0.02, 92.0, 0.8),
-        InstrumentSpec("BOND.EURGOV10", "bond", "EUR", 0.05, {"equity_global": -0.2, "rates": 0.85}, 0.01, 100.0, 0.5),
-        InstrumentSpec("BOND.USDGOV10", "bond", "USD", 0.06, {"equity_global": -0.2, "rates": 0.6}, 0.015, 100.0, 0.5),
-        InstrumentSpec("FX.USD", "fx", BASE_CURRENCY, 0.075, {"equity_global": -0.25, "fx_usd": 0.9}, 0.0, 0.834, 0.5),
+        InstrumentSpec("EQ.VELMARSK", eq, "EUR", 0.22, {"equity_global": 0.55, "equity_eur": 0.45}, 0.07, 84.0),
+        InstrumentSpec("EQ.QUORVENTA", eq, "EUR", 0.19, {"equity_global": 0.45, "equity_eur": 0.45, "rates": 0.15}, 0.05, 21.5),
+        InstrumentSpec("EQ.OSTRELLIN", eq, "EUR", 0.3, {"equity_global": 0.6, "equity_eur": 0.45, "rates": -0.15}, 0.06, 12.8),
+        InstrumentSpec("EQ.KARVENHOLT", eq, "EUR", 0.24, {"equity_global": 0.55, "equity_eur": 0.4}, 0.07, 146.0),
+        InstrumentSpec("EQ.TALLOWMERE", eq, "USD", 0.32, {"equity_global": 0.55, "equity_usd": 0.45}, 0.10, 212.0),
+        InstrumentSpec("EQ.SPARROWDYNE", eq, "USD", 0.26, {"equity_global": 0.55, "equity_usd": 0.4, "commodity": 0.1}, 0.07, 57.3),
+        InstrumentSpec("EQ.GRISTVALE", eq, "USD", 0.2, {"equity_global": 0.45, "equity_usd": 0.4}, 0.06, 38.9),
+        InstrumentSpec("FUT.VALDORIA20", "equity_index_future", "EUR", 0.195, {"equity_global": 0.7, "equity_eur": 0.66}, 0.06, 3400.0),
+        InstrumentSpec("CMD.BASEMETAL", "commodity", "USD", 0.3, {"equity_global": 0.3, "fx_usd": -0.1, "commodity": 0.85}, 0.02, 92.0, 0.8),
+        InstrumentSpec("BOND.EURGOV10", "bond", "EUR", 0.055, {"equity_global": -0.2, "rates": 0.85}, 0.01, 100.0, 0.5),
+        InstrumentSpec("BOND.USDGOV10", "bond", "USD", 0.065, {"equity_global": -0.2, "rates": 0.6}, 0.015, 100.0, 0.5),
+        InstrumentSpec("FX.USD", "fx", BASE_CURRENCY, 0.085, {"equity_global": -0.25, "fx_usd": 0.9}, 0.0, 0.834, 0.5),
     )
 
 
@@ -385,15 +394,15 @@ def episode_profile(
     Returns
     -------
     multiplier : (T,) float
-        ``1 + (m - 1) * s_t`` with ``s_t`` rising to 1 over five days, held
-        for the first 40 % of the episode, easing to 0.5 at its end, then
-        decaying with ``decay_half_life``.
+        ``1 + (m - 1) * s_t`` with ``s_t`` rising to 1 over three days,
+        held for the first 60 % of the episode, easing to 0.6 at its end,
+        then decaying with ``decay_half_life``.
     fall : (T,) float
         Weights summing to 1 over the first 70 % of the episode (where the
         prescribed fall happens), 0 elsewhere; all 0 if the episode lies
         outside the dates.
     """
-    inside = (return_dates >= np.datetime64(episode.start)) & (return_dates <= np.datetime64(episode.end))
+    inside = _in_window(return_dates, episode.start, episode.end)
     shape = np.zeros(return_dates.shape)
     fall = np.zeros(return_dates.shape)
     idx = np.flatnonzero(inside)
@@ -401,9 +410,9 @@ def episode_profile(
         return 1.0 + shape, fall
     n = idx.size
     k = np.arange(n, dtype=float)
-    hold = 0.4 * n
-    inner = np.minimum(1.0, (k + 1) / 5.0)
-    inner = np.where(k > hold, 1.0 - 0.5 * (k - hold) / max(n - 1 - hold, 1.0), inner)
+    hold = 0.6 * n
+    inner = np.minimum(1.0, (k + 1) / 3.0)
+    inner = np.where(k > hold, 1.0 - 0.4 * (k - hold) / max(n - 1 - hold, 1.0), inner)
     shape[idx] = inner
     after = np.arange(idx[-1] + 1, return_dates.size)
     shape[after] = inner[-1] * 0.5 ** ((after - idx[-1]) / decay_half_life)
@@ -478,6 +487,38 @@ def _loading_matrix(specs: Sequence[InstrumentSpec]) -> np.ndarray:
     return b
 
 
+def max_drawdown(log_returns: np.ndarray) -> float:
+    """Largest peak-to-trough fall of ``exp(cumsum(log_returns))``, starting at 1.
+
+    Parameters
+    ----------
+    log_returns : (T,) float
+
+    Returns
+    -------
+    float
+        ``1 - min_t P_t / max_{s <= t} P_s`` as a fraction.
+    """
+    level = np.concatenate([[0.0], np.cumsum(log_returns)])
+    return float(1.0 - np.exp((level - np.maximum.accumulate(level)).min()))
+
+
+def _fall_drift(returns: np.ndarray, effect: np.ndarray, drawdown: float) -> float:
+    """Multiplier ``delta <= 0`` of ``effect`` giving the equal-weight basket
+    of ``returns`` a peak-to-trough fall of ``drawdown`` (bisection; the
+    drawdown is monotone in ``delta`` because ``effect >= 0``)."""
+    basket, push = returns.mean(axis=1), effect.mean(axis=1)
+    if drawdown <= 0 or max_drawdown(basket) >= drawdown or not np.any(push > 0):
+        return 0.0
+    lo, hi = -1.0, 0.0
+    while max_drawdown(basket + lo * push) < drawdown:
+        lo *= 2.0
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if max_drawdown(basket + mid * push) >= drawdown else (lo, mid)
+    return 0.5 * (lo + hi)
+
+
 def simulate_market(
     universe: int | Sequence[InstrumentSpec],
     n_days: int | None = None,
@@ -515,7 +556,7 @@ def simulate_market(
     -----
     For instrument ``i`` on day ``t``::
 
-        r_it = mu_i / 252 + sigma_i / sqrt(252) * m_it * (B_i(t) . f_t + s_i(t) e_it)
+        r_it = mu_i / 252 + k_i m_it (B_i(t) . f_t + s_i(t) e_it) + delta m_it sigma_i B_ig(t) u_t
 
     ``f`` are the :data:`FACTORS` and ``e`` idiosyncratic terms, all
     unit-variance GARCH(1,1)-t series (:func:`garch_t_paths`), hence fat
@@ -525,13 +566,15 @@ def simulate_market(
     loadings whose global-equity part carries an extra share of the
     idiosyncratic variance (rising equity correlation); ``s_i(t) =
     sqrt(1 - |B_i(t)|^2)`` keeps the variance. Inside each episode every
-    instrument's noise is shifted by a constant so it sums to zero there,
-    and a drift ``delta * sigma_i m_it B_ig(t)`` spread over the first 70 %
-    of the episode makes the average equity's log return over the episode
-    exactly ``log(1 - drop)``: the net fall is the same whatever the seed,
-    while the peak-to-trough drawdown inside the episode is larger by the
-    path's noise. Other instruments follow through their global-equity
-    loading (bonds and FX.USD rise, commodities fall).
+    instrument's noise is shifted by a constant so that it sums to zero
+    there. ``k_i`` rescales the noise so that its realised volatility over
+    the sample is ``sigma_i`` (``annual_vol / sqrt(252)``). Last, the drift
+    term (``u_t`` the episode's fall weights over its first 70 %, ``delta <=
+    0`` found by bisection, ``B_ig`` the global-equity loading) gives the equal-weighted equities a
+    peak-to-trough fall of ``equity_drop`` inside the episode, whatever the
+    seed (unless the noise alone falls further). Other instruments follow
+    through their global-equity loading (bonds and FX.USD rise, commodities
+    fall).
 
     References
     ----------
@@ -568,13 +611,13 @@ def simulate_market(
 
     stress = np.ones(n_ret)
     boost = np.zeros(n_ret)  # weight of the crisis loadings, 0..1
-    falls = []
+    falls = []  # (episode, fall weights, window mask)
     for ep in episodes:
         mult, fall = episode_profile(ret_dates, ep)
         stress *= mult
         if ep.vol_multiplier > 1:
             boost = np.maximum(boost, ep.correlation_boost * (mult - 1) / (ep.vol_multiplier - 1))
-        falls.append((ep, fall))
+        falls.append((ep, fall, _in_window(ret_dates, ep.start, ep.end)))
 
     # Crisis loadings: move a share of idiosyncratic variance onto the global
     # equity factor, for the equity rows only.
@@ -593,21 +636,20 @@ def simulate_market(
     scale = sigma[None, :] * m
     loading_g = (1 - w) * b_normal[None, :, _G] + w * b_crisis[None, :, _G]
 
-    shock = (1 - w) * sys_n + w * sys_c + idio_w * idio
-    returns = drift[None, :] + scale * shock
-    for ep, fall in falls:
-        window = (ret_dates >= np.datetime64(ep.start)) & (ret_dates <= np.datetime64(ep.end))
-        if not window.any():
-            continue
-        # Pin each instrument's noise to sum to zero over the window, so the
-        # episode's net move is the prescribed one whatever the seed; the
-        # path inside the window stays random.
-        returns[window] -= (scale[window] * shock[window]).mean(axis=0)
-        if is_equity.any():
-            per_unit = (scale * loading_g * fall[:, None]).sum(axis=0)
-            target = np.log1p(-ep.equity_drop) - drift[is_equity].mean() * window.sum()
-            delta = target / per_unit[is_equity].mean()
-            returns += delta * scale * loading_g * fall[:, None]
+    noise = scale * ((1 - w) * sys_n + w * sys_c + idio_w * idio)
+    for _, _, window in falls:
+        # Each instrument's noise sums to zero over an episode: its net move
+        # there is the prescribed one whatever the seed.
+        if window.any():
+            noise[window] -= noise[window].mean(axis=0)
+    realised = noise.std(axis=0)
+    noise *= np.divide(sigma, realised, out=np.ones_like(sigma), where=realised > 0)[None, :]
+    returns = drift[None, :] + noise
+    for ep, fall, window in falls:
+        if window.any() and is_equity.any():
+            effect = scale * loading_g * fall[:, None]
+            delta = _fall_drift(returns[window][:, is_equity], effect[window][:, is_equity], ep.equity_drop)
+            returns += delta * effect
 
     start_price = np.array([s.start_price for s in specs])
     log_prices = np.log(start_price)[None, :] + np.vstack([np.zeros((1, n)), np.cumsum(returns, axis=0)])
@@ -635,7 +677,7 @@ def format_fixed(values: np.ndarray, decimals: np.ndarray) -> np.ndarray:
 
     Returns
     -------
-    (T, N) str
+    (T, N) numpy.dtypes.StringDType
         E.g. ``"123.4567"``; never exponent notation.
 
     Notes
@@ -653,8 +695,8 @@ def format_fixed(values: np.ndarray, decimals: np.ndarray) -> np.ndarray:
     if not np.all(np.isfinite(scaled)) or np.any(scaled <= 0) or np.any(scaled >= 2.0**62):
         raise ValueError("values must be finite, positive and representable at the requested decimals")
     whole, frac = np.divmod(scaled.astype(np.int64), unit)
-    text = whole.astype(str)
-    frac_text = np.strings.add(".", np.strings.zfill(frac.astype(str), decimals))
+    text = whole.astype(_STR)
+    frac_text = np.strings.add(".", np.strings.zfill(frac.astype(_STR), decimals))
     return np.where(decimals > 0, np.strings.add(text, frac_text), text)
 
 
@@ -690,35 +732,19 @@ def write_price_csv(
     chunk_rows : int
         Rows formatted at a time, bounding memory for large universes.
     """
-    names = np.asarray(instruments, dtype=str)
-    date_text = dates.astype("datetime64[D]").astype(str)
+    names = np.strings.add(np.asarray(instruments, dtype=_STR), ",")
+    date_text = np.strings.add(dates.astype("datetime64[D]").astype(str).astype(_STR), ",")
     step = max(1, chunk_rows // max(1, len(names)))
     with open(path, "w", encoding="ascii", newline="\n") as fh:
         fh.write("date,instrument,close\n")
         for lo in range(0, len(dates), step):
             hi = min(lo + step, len(dates))
             close_text = format_fixed(closes[lo:hi], decimals)
-            head = np.strings.add(np.strings.add(date_text[lo:hi, None], ","), names[None, :])
-            lines = np.strings.add(np.strings.add(head, ","), close_text)[present[lo:hi]]
+            head = np.strings.add(date_text[lo:hi, None], names[None, :])
+            lines = np.strings.add(head, close_text)[present[lo:hi]]
             if lines.size:
                 fh.write("\n".join(lines.tolist()))
                 fh.write("\n")
-
-
-def max_drawdown(log_returns: np.ndarray) -> float:
-    """Largest peak-to-trough fall of ``exp(cumsum(log_returns))``, starting at 1.
-
-    Parameters
-    ----------
-    log_returns : (T,) float
-
-    Returns
-    -------
-    float
-        ``1 - min_t P_t / max_{s <= t} P_s`` as a fraction.
-    """
-    level = np.concatenate([[0.0], np.cumsum(log_returns)])
-    return float(1.0 - np.exp((level - np.maximum.accumulate(level)).min()))
 
 
 # Target base-currency values per holding on the last date (signed). The
@@ -808,9 +834,8 @@ def _plant_quirks(paths: MarketPaths) -> tuple[np.ndarray, np.ndarray]:
     present = np.ones(closes.shape, dtype=bool)
     col = paths.column(QUIRK_INSTRUMENT)
     for first, last in QUIRK_GAPS:
-        rows = np.flatnonzero((paths.dates >= np.datetime64(first)) & (paths.dates <= np.datetime64(last)))
-        present[rows, col] = False
-    rows = np.flatnonzero((paths.dates >= np.datetime64(QUIRK_STALE[0])) & (paths.dates <= np.datetime64(QUIRK_STALE[1])))
+        present[_in_window(paths.dates, first, last), col] = False
+    rows = np.flatnonzero(_in_window(paths.dates, *QUIRK_STALE))
     closes[rows, col] = closes[rows[0], col]
     return closes, present
 
@@ -870,7 +895,7 @@ def write_demo(out_dir: Path | str, *, seed: int | np.random.Generator = DEFAULT
     basket = r[:, eur_eq].mean(axis=1)
     drawdown, ratio = {}, {}
     for ep in DEMO_EPISODES:
-        inside = (ret_dates >= np.datetime64(ep.start)) & (ret_dates <= np.datetime64(ep.end))
+        inside = _in_window(ret_dates, ep.start, ep.end)
         drawdown[ep.name] = max_drawdown(basket[inside])
         ratio[ep.name] = float((r[inside][:, eq].std(axis=0) / r[~inside][:, eq].std(axis=0)).mean())
     unit = _value_in_base(paths, -1)
