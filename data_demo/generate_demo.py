@@ -23,7 +23,7 @@ import argparse
 import csv
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Mapping, Sequence
+from typing import Iterable, Mapping, Sequence
 
 import numpy as np
 
@@ -50,7 +50,9 @@ __all__ = [
     "garch_t_paths",
     "simulate_market",
     "format_fixed",
+    "price_decimals",
     "write_price_csv",
+    "write_market",
     "demo_positions",
     "max_drawdown",
     "write_demo",
@@ -201,10 +203,13 @@ class MarketPaths:
 
 @dataclass(frozen=True)
 class DemoSummary:
-    """What :func:`write_demo` wrote, for the printed summary and tests."""
+    """What :func:`write_demo` wrote, for the printed summary and tests.
+
+    ``seed`` is None when a Generator was passed instead of an int.
+    """
 
     out_dir: Path
-    seed: int
+    seed: int | None
     files: tuple[Path, ...]
     paths: MarketPaths
     realised_vol: Mapping[str, float]
@@ -700,9 +705,19 @@ def format_fixed(values: np.ndarray, decimals: np.ndarray) -> np.ndarray:
     return np.where(decimals > 0, np.strings.add(text, frac_text), text)
 
 
-def _price_decimals(start_price: np.ndarray) -> np.ndarray:
-    # About seven significant digits at the start price, at most six decimals:
-    # fine enough that chance repeats of a close are rare (they would look stale).
+def price_decimals(start_price: np.ndarray) -> np.ndarray:
+    """Decimal places for closes: about seven significant digits at the start
+    price, at most six decimals (fine enough that chance repeats of a close,
+    which would look stale, are rare).
+
+    Parameters
+    ----------
+    start_price : (N,) float
+
+    Returns
+    -------
+    (N,) int
+    """
     digits = np.floor(np.log10(start_price)).astype(np.int64) + 1
     return np.clip(7 - digits, 0, 6)
 
@@ -821,11 +836,68 @@ def demo_positions(paths: MarketPaths) -> dict[str, dict[str, dict[str, int]]]:
     return {POSITION_DATES[0]: earlier, POSITION_DATES[1]: last}
 
 
-def _write_rows(path: Path, header: Sequence[str], rows: Sequence[Sequence[object]]) -> None:
+def _write_rows(path: Path, header: Sequence[str], rows: Iterable[Sequence[object]]) -> None:
     with open(path, "w", encoding="ascii", newline="") as fh:
         writer = csv.writer(fh, lineterminator="\n")
         writer.writerow(header)
         writer.writerows(rows)
+
+
+def write_market(
+    out_dir: Path | str,
+    paths: MarketPaths,
+    *,
+    n_price_files: int = 5,
+    n_portfolios: int = 3,
+    holdings: int = 50,
+    seed: int | np.random.Generator | None = None,
+) -> tuple[Path, ...]:
+    """Write a complete data folder for any simulated universe (benchmarks).
+
+    Parameters
+    ----------
+    out_dir : path
+        Gets ``instruments.csv``, ``prices/part_00.csv`` ... and
+        ``positions.csv``.
+    paths : MarketPaths
+        E.g. ``simulate_market(5000, 2520, seed=1)``; must contain an
+        ``FX.<CCY>`` series for every non-base currency.
+    n_price_files : int
+        Instruments are split into this many price files (contiguous groups).
+    n_portfolios, holdings : int
+        Books ``book_000`` ... each hold ``holdings`` instruments drawn at
+        random, 70 % long, 20k-200k base currency each.
+    seed : int or numpy.random.Generator
+        Draws the books.
+
+    Returns
+    -------
+    tuple of Path
+        The files written. Every close is present (no planted quirks).
+    """
+    out = Path(out_dir)
+    (out / "prices").mkdir(parents=True, exist_ok=True)
+    rng = np.random.default_rng(seed)
+    n = len(paths.instruments)
+    files = [out / "instruments.csv"]
+    _write_rows(files[0], ("instrument", "asset_class", "currency"), zip(paths.instruments, paths.asset_classes, paths.currencies))
+    decimals = price_decimals(paths.prices[0])
+    present = np.ones(paths.prices.shape, dtype=bool)
+    for k, cols in enumerate(np.array_split(np.arange(n), min(n_price_files, n))):
+        cols = cols[np.argsort(np.asarray(paths.instruments)[cols])]
+        path = out / "prices" / f"part_{k:02d}.csv"
+        write_price_csv(path, paths.dates, [paths.instruments[c] for c in cols], paths.prices[:, cols], present[:, cols], decimals[cols])
+        files.append(path)
+    unit = _value_in_base(paths, -1)
+    rows = []
+    for b in range(n_portfolios):
+        cols = np.sort(rng.choice(n, size=min(holdings, n), replace=False))
+        value = rng.uniform(20_000, 200_000, cols.size) * np.where(rng.uniform(size=cols.size) < 0.7, 1, -1)
+        qty = np.rint(value / unit[cols]).astype(np.int64)
+        rows += [(f"book_{b:03d}", paths.instruments[c], int(q)) for c, q in zip(cols, qty) if q != 0]
+    files.append(out / "positions.csv")
+    _write_rows(files[-1], ("portfolio", "instrument", "quantity"), rows)
+    return tuple(files)
 
 
 def _plant_quirks(paths: MarketPaths) -> tuple[np.ndarray, np.ndarray]:
@@ -861,7 +933,7 @@ def write_demo(out_dir: Path | str, *, seed: int | np.random.Generator = DEFAULT
     specs = demo_universe()
     paths = simulate_market(specs, seed=seed, start=DEMO_START, end=DEMO_END)
     closes, present = _plant_quirks(paths)
-    decimals = _price_decimals(np.array([s.start_price for s in specs]))
+    decimals = price_decimals(np.array([s.start_price for s in specs]))
     files = []
 
     path = out / "instruments.csv"
@@ -903,8 +975,8 @@ def write_demo(out_dir: Path | str, *, seed: int | np.random.Generator = DEFAULT
         book: float(sum(abs(q) * unit[paths.column(n)] for n, q in qs.items()))
         for book, qs in books[POSITION_DATES[-1]].items()
     }
-    seed_label = seed if isinstance(seed, (int, np.integer)) else -1
-    return DemoSummary(out, int(seed_label), tuple(files), paths, vol, drawdown, ratio, gross)
+    seed_label = int(seed) if isinstance(seed, (int, np.integer)) else None
+    return DemoSummary(out, seed_label, tuple(files), paths, vol, drawdown, ratio, gross)
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -371,3 +371,34 @@ def test_format_fixed_and_price_writer(tmp_path):
         "2024-01-04,A,1.2", "2024-01-04,B,12",
         "2024-01-05,A,1.3",
     ]
+
+
+def test_write_market_gives_a_complete_data_folder(tmp_path):
+    paths = gen.simulate_market(23, 40, seed=5)
+    files = gen.write_market(tmp_path / "a", paths, n_price_files=4, n_portfolios=2, holdings=10, seed=9)
+    again = gen.write_market(tmp_path / "b", paths, n_price_files=4, n_portfolios=2, holdings=10, seed=9)
+    for x, y in zip(files, again):
+        assert x.read_bytes() == y.read_bytes()
+    listed = {r["instrument"] for r in _rows(tmp_path / "a" / "instruments.csv")}
+    assert listed == set(paths.instruments)
+    priced = defaultdict(int)
+    for path in sorted((tmp_path / "a" / "prices").glob("part_*.csv")):
+        for row in _rows(path):
+            priced[row["instrument"]] += 1
+    assert len(list((tmp_path / "a" / "prices").glob("*.csv"))) == 4
+    assert dict(priced) == {name: 40 for name in paths.instruments}
+    held = _positions(tmp_path / "a" / "positions.csv")
+    assert {b for b, _ in held} == {"book_000", "book_001"}
+    assert {i for _, i in held} <= listed and len(held) <= 20
+
+
+def test_garch_settings_have_a_finite_fourth_moment():
+    # GARCH(1,1) with innovation kurtosis k has a finite fourth moment iff
+    # beta^2 + 2 alpha beta + k alpha^2 < 1 (Bollerslev 1986, Journal of
+    # Econometrics 31(3), theorem 2, stated there for normal innovations,
+    # k = 3; the same moment recursion holds for any k). Student-t with nu
+    # dof standardised to unit variance has k = 3 + 6 / (nu - 4).
+    for alpha, beta, nu in [*gen._FACTOR_GARCH.values(), gen._IDIO_GARCH]:
+        k = stats.t(nu).stats(moments="k") + 3.0  # scipy gives excess kurtosis
+        assert k == pytest.approx(3 + 6 / (nu - 4))
+        assert beta**2 + 2 * alpha * beta + k * alpha**2 < 1, (alpha, beta, nu)
