@@ -12,7 +12,7 @@ import pyarrow as pa
 from .csvread import CsvTable, parse_dates, parse_numbers, read_csv_strict, require_text
 from .errors import InputError
 
-__all__ = ["PRICE_COLUMNS", "QUALITY_SCHEMA", "read_price_file", "quality_checks", "empty_quality"]
+__all__ = ["PRICE_COLUMNS", "QUALITY_SCHEMA", "read_price_file", "quality_checks", "empty_quality", "runs_of_true"]
 
 PRICE_COLUMNS = ("date", "instrument", "close")
 
@@ -96,7 +96,7 @@ def read_price_file(
     return out, list(table.extra_columns)
 
 
-def _runs(flags: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def runs_of_true(flags: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Start and end (inclusive) indices of runs of True in a 1-D array."""
     padded = np.concatenate(([False], flags, [False])).astype(np.int8)
     edges = np.diff(padded)
@@ -136,12 +136,12 @@ def quality_checks(prices: pa.Table, file: str, *, stale_days: int, extra_column
     span = (np.arange(len(calendar)) >= first[:, None]) & (np.arange(len(calendar)) <= last[:, None])
     missing = span & ~present
     for k in np.flatnonzero(missing.any(axis=1)):
-        for s, e in zip(*_runs(missing[k])):
+        for s, e in zip(*runs_of_true(missing[k])):
             rows.append(dict(instrument=names[k], check="gap", first_date=calendar[s], last_date=calendar[e], n=int(e - s + 1),
                              detail=f"no price on {e - s + 1} date(s) the file has for other instruments", severity="warning"))
     repeat = np.zeros(len(close), dtype=bool)
     repeat[1:] = (close[1:] == close[:-1]) & (inst[1:] == inst[:-1])
-    for s, e in zip(*_runs(repeat)):
+    for s, e in zip(*runs_of_true(repeat)):
         length = e - s + 2  # a run of k repeats spans k + 1 rows
         if length >= stale_days:
             rows.append(dict(instrument=inst[s], check="stale", first_date=date[s - 1], last_date=date[e], n=int(length),

@@ -9,7 +9,7 @@ import numpy as np
 import pyarrow as pa
 
 from .errors import InputError
-from .ingest import QUALITY_SCHEMA
+from .ingest import QUALITY_SCHEMA, runs_of_true
 from .reference import fx_instrument
 
 __all__ = ["MarketData", "build_market", "forward_fill_limited", "market_to_tables", "market_from_tables"]
@@ -130,10 +130,11 @@ def build_market(
     filled_mask = ~observed & ~np.isnan(local)
     rows = []
     for j in np.flatnonzero(filled_mask.any(axis=0)):
-        idx = np.flatnonzero(filled_mask[:, j])
-        rows.append(dict(file=seen[names[j]], instrument=names[j], check="filled", first_date=dates[idx[0]].item(),
-                         last_date=dates[idx[-1]].item(), n=len(idx),
-                         detail=f"{len(idx)} missing date(s) carried forward (limit {max_fill_days})", severity="info"))
+        for s, e in zip(*runs_of_true(filled_mask[:, j])):
+            rows.append(dict(file=seen[names[j]], instrument=names[j], check="filled", first_date=dates[s].item(),
+                             last_date=dates[e].item(), n=int(e - s + 1),
+                             detail=f"{e - s + 1} missing date(s) carried forward (limit {max_fill_days})",
+                             severity="info"))
     filled = pa.Table.from_pylist(rows, schema=QUALITY_SCHEMA) if rows else QUALITY_SCHEMA.empty_table()
     market = MarketData(dates=dates, instruments=names, local=local, base=base, observed=observed, log_returns=log_returns)
     return market, filled
