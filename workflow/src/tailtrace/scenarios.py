@@ -174,7 +174,8 @@ def build_sample(market: MarketData, exposures: pa.Table, as_of: np.datetime64, 
     end = int(idx[-1]) + 1
     start_hist = int(np.flatnonzero(np.isfinite(market.log_returns[:end, cols]).all(axis=1))[0])
     history = market.log_returns[start_hist:end, cols]
-    history = history[np.isfinite(history).all(axis=1)]
+    complete = np.isfinite(history).all(axis=1)
+    history, history_dates = history[complete], market.dates[start_hist:end][complete]
     revalue = linear_revalue(values)
     return RiskSample(
         as_of=np.datetime64(as_of, "D"),
@@ -186,6 +187,7 @@ def build_sample(market: MarketData, exposures: pa.Table, as_of: np.datetime64, 
         values=values,
         pnl=revalue(returns, 1),
         revalue=revalue,
+        history_dates=history_dates,
     )
 
 

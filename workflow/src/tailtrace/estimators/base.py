@@ -76,6 +76,8 @@ class RiskSample:
     revalue : callable
         ``revalue(log_shocks (S, N), horizon_days) -> (P, S)`` P&L; full
         revaluation of the book. Linear books use :func:`linear_revalue`.
+    history_dates : (H,) datetime64[D] or None
+        Dates of the ``history`` rows.
     """
 
     as_of: np.datetime64
@@ -87,6 +89,7 @@ class RiskSample:
     values: np.ndarray
     pnl: np.ndarray
     revalue: Callable[[np.ndarray, int], np.ndarray] = field(repr=False)
+    history_dates: np.ndarray | None = None
 
     @property
     def n_obs(self) -> int:
