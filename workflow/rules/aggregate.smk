@@ -23,5 +23,7 @@ rule aggregate:
         database=result_path("risk.duckdb"),
         config=config_snapshot(),
         code=code_version("aggregate", "database", "figures", "provenance", "ingest"),
+    conda:
+        ENV
     script:
         "../scripts/aggregate.py"

@@ -9,6 +9,7 @@ SRC = Path(workflow.basedir) / "workflow" / "src" / "tailtrace"
 DATA = Path(config["data_dir"])
 RESULTS = Path(config["results_dir"])
 SAFE_NAME = "[A-Za-z0-9][A-Za-z0-9_.-]*"
+ENV = "../envs/tailtrace.yaml"  # used only with --sdm conda
 
 
 wildcard_constraints:

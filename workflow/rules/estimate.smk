@@ -28,5 +28,7 @@ for _method in config["methods"]:
             seed=method_seed(_method),
             code=code_version(*estimator_modules(_method), "scenarios", "figures", "pipeline", "provenance"),
             libs=lib_versions("numpy", "scipy"),
+        conda:
+            ENV
         script:
             "../scripts/estimate.py"

@@ -21,6 +21,8 @@ rule build_returns:
         max_fill_days=config["returns"]["max_fill_days"],
         instruments_file=data_path("instruments"),
         code=code_version("market", "ingest", "reference", "errors", "pipeline", "provenance"),
+    conda:
+        ENV
     script:
         "../scripts/build_returns.py"
 
@@ -45,5 +47,7 @@ rule build_scenarios:
         window_days=config["window_days"],
         positions_file=data_path("positions"),
         code=code_version("scenarios", "market", "estimators/base", "errors", "pipeline", "provenance"),
+    conda:
+        ENV
     script:
         "../scripts/build_scenarios.py"
