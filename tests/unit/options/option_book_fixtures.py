@@ -72,5 +72,5 @@ def correlated_returns(cov: np.ndarray, n: int, seed: int) -> np.ndarray:
     rng = np.random.default_rng(seed)
     x = rng.standard_normal((n, cov.shape[0]))
     x -= x.mean(axis=0)
-    white = x @ np.linalg.inv(np.linalg.cholesky(np.cov(x, rowvar=False))).T
+    white = x @ np.linalg.inv(np.linalg.cholesky(np.atleast_2d(np.cov(x, rowvar=False)))).T
     return white @ np.linalg.cholesky(cov).T
