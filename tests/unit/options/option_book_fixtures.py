@@ -62,8 +62,7 @@ def sample_from_book(book, returns: np.ndarray, as_of: str = AS_OF) -> RiskSampl
     dates = np.datetime64(as_of, "D") - np.arange(t)[::-1]
     return RiskSample(
         as_of=np.datetime64(as_of, "D"), portfolios=book.portfolios, instruments=book.instruments,
-        dates=dates, returns=returns, history=returns, values=book.exposures, pnl=book.revalue(returns, 1),
-        revalue=book.revalue, exposures=book.exposures, gammas=book.gammas, thetas=book.thetas,
+        dates=dates, returns=returns, history=returns, **book.risk_sample_fields(returns),
     )
 
 

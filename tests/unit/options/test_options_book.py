@@ -169,3 +169,21 @@ def test_explicit_fx_rates_override_prices():
     pos = positions_table().loc[lambda t: t["instrument"] == "PUT.EU"]
     book = _build(pos, fx_rates={"EUR": 1.30})
     assert book.held.spot[0] == pytest.approx(PRICES["EQ.EU"] / 1.30)
+
+
+def test_risk_sample_fields(demo_book):
+    returns = np.random.default_rng(3).normal(0, 0.01, (20, N))
+    fields = demo_book.risk_sample_fields(returns)
+    np.testing.assert_array_equal(fields["pnl"], demo_book.revalue(returns, 1))
+    assert fields["values"] is demo_book.exposures and fields["gammas"] is demo_book.gammas
+    assert fields["revalue"] == demo_book.revalue
+
+
+def test_table_types_for_storage(demo_book):
+    t = demo_book.sensitivities
+    assert str(t["expiry"].dtype).startswith("datetime64")
+    assert t.loc[t["model"] == "linear", "expiry"].isna().all()
+    assert t.loc[t["instrument"] == "PUT.EU", "expiry"].iloc[0] == pd.Timestamp("2025-06-30")
+    numeric = [c for c in SENSITIVITY_COLUMNS if c not in
+               ("portfolio", "instrument", "underlying", "model", "currency", "option_type", "expiry")]
+    assert all(np.issubdtype(t[c].dtype, np.floating) for c in numeric)

@@ -128,6 +128,32 @@ class OptionBook:
     def n_options(self) -> int:
         return len(self.held.instrument)
 
+    def risk_sample_fields(self, window_returns: np.ndarray) -> dict[str, Any]:
+        """Fields of :class:`~tailtrace.estimators.base.RiskSample` this book supplies.
+
+        Parameters
+        ----------
+        window_returns : (T, N) float
+            The estimation-window log returns, columns ``self.instruments``.
+
+        Returns
+        -------
+        dict
+            ``values`` (the exposures: linear values plus option
+            delta-equivalents, so linear-parametric methods see the
+            first-order book), ``pnl`` (1-day full revaluation of the window,
+            options aged 1.4 calendar days), ``revalue``, ``exposures``,
+            ``gammas`` and ``thetas``.
+        """
+        return {
+            "values": self.exposures,
+            "pnl": self.revalue(window_returns, 1),
+            "revalue": self.revalue,
+            "exposures": self.exposures,
+            "gammas": self.gammas,
+            "thetas": self.thetas,
+        }
+
     def revalue(
         self,
         log_shocks: np.ndarray,
@@ -302,33 +328,35 @@ def _taylor_terms(linear_values: np.ndarray, units: np.ndarray, o: HeldOptions):
 
 def _sensitivity_table(linear: pd.DataFrame, lin_price, lin_fx, lin_ccy, opt_pos, o: HeldOptions) -> pd.DataFrame:
     lin_value = linear["quantity"].to_numpy(dtype=np.float64) * lin_price
-    lin_table = pd.DataFrame({
+    n_lin = len(linear)
+    lin_table = {
         "portfolio": linear["portfolio"].to_numpy(), "instrument": linear["instrument"].to_numpy(),
-        "underlying": linear["instrument"].to_numpy(), "model": "linear", "currency": lin_ccy,
-        "option_type": None, "strike": np.nan, "expiry": None,
-        "quantity": linear["quantity"].to_numpy(dtype=np.float64), "multiplier": 1.0,
+        "underlying": linear["instrument"].to_numpy(), "model": np.full(n_lin, "linear", dtype=object),
+        "currency": np.array(lin_ccy, dtype=object), "option_type": np.full(n_lin, None, dtype=object),
+        "strike": np.full(n_lin, np.nan), "expiry": np.full(n_lin, "NaT", dtype="datetime64[D]"),
+        "quantity": linear["quantity"].to_numpy(dtype=np.float64), "multiplier": np.ones(n_lin),
         "underlying_price": lin_price / lin_fx, "price": lin_price / lin_fx, "fx_rate": lin_fx,
-        "value": lin_value, "unit_delta": 1.0, "unit_gamma": 0.0, "delta": lin_value, "fx_delta": 0.0,
-        "gamma": 0.0, "vega": 0.0, "theta": 0.0,
-    })
+        "value": lin_value, "unit_delta": np.ones(n_lin), "unit_gamma": np.zeros(n_lin), "delta": lin_value,
+        **{k: np.zeros(n_lin) for k in ("fx_delta", "gamma", "vega", "theta")},
+    }
     j = opt_pos["instrument"].map({h: i for i, h in enumerate(o.instrument)}).to_numpy(dtype=np.int64)
     qty = opt_pos["quantity"].to_numpy(dtype=np.float64)
     n = qty * o.multiplier[j]
     gr, s, fx = o.greeks, o.spot[j], o.fx[j]
-    opt_table = pd.DataFrame({
+    opt_table = {
         "portfolio": opt_pos["portfolio"].to_numpy(), "instrument": opt_pos["instrument"].to_numpy(),
         "underlying": np.array(o.underlying, dtype=object)[j], "model": np.array(o.model, dtype=object)[j],
         "currency": np.array(o.currency, dtype=object)[j], "option_type": np.where(o.is_call[j], "call", "put"),
-        "strike": o.strike[j], "expiry": o.expiry[j].astype(str), "quantity": qty, "multiplier": o.multiplier[j],
+        "strike": o.strike[j], "expiry": o.expiry[j], "quantity": qty, "multiplier": o.multiplier[j],
         "underlying_price": s, "price": gr.price[j], "fx_rate": fx, "value": n * gr.price[j] * fx,
         "unit_delta": gr.delta[j], "unit_gamma": gr.gamma[j], "delta": n * gr.delta[j] * s * fx,
         "fx_delta": np.where(o.fx_col[j] >= 0, n * (gr.price[j] - gr.delta[j] * s) * fx, 0.0),
         "gamma": n * gr.gamma[j] * s * s * fx, "vega": n * gr.vega[j] * fx / 100.0,
         "theta": n * gr.theta[j] * fx / DAYS_PER_YEAR,
-    })
-    parts = [t for t in (lin_table, opt_table) if len(t)]
-    table = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=list(SENSITIVITY_COLUMNS))
-    table = table.loc[:, list(SENSITIVITY_COLUMNS)]
+    }
+    opt_table["option_type"] = opt_table["option_type"].astype(object)
+    table = pd.DataFrame({c: np.concatenate([lin_table[c], opt_table[c]]) for c in SENSITIVITY_COLUMNS})
+    table["expiry"] = pd.to_datetime(table["expiry"])  # NaT on linear rows
     return table.sort_values(["portfolio", "instrument"], kind="stable").reset_index(drop=True)
 
 
