@@ -187,3 +187,15 @@ def test_table_types_for_storage(demo_book):
     numeric = [c for c in SENSITIVITY_COLUMNS if c not in
                ("portfolio", "instrument", "underlying", "model", "currency", "option_type", "expiry")]
     assert all(np.issubdtype(t[c].dtype, np.floating) for c in numeric)
+
+
+def test_specs_validated_earlier_are_rechecked_for_expiry():
+    # Specs parsed for an earlier date must not be priced silently after expiry.
+    from tailtrace.options import validate_option_rows
+
+    specs = validate_option_rows(instruments_table(), file="instruments.csv", known_instruments=COLUMNS,
+                                 as_of=AS_OF)
+    pos = pd.DataFrame([("p", "CALL.US", 1.0)], columns=["portfolio", "instrument", "quantity"])
+    with pytest.raises(InputError, match=r"row 7, column 'expiry': option has expired"):
+        build_book(pos, instruments_table(), PRICES, as_of="2025-03-21", columns=COLUMNS, base_currency=BASE,
+                   options=specs)

@@ -283,11 +283,14 @@ def _held_options(opt_pos, options, market, col_index, as_of, *, instruments_fil
                  "base-currency prices)", "currency", ccy)
         if ccy != base and f"FX.{ccy}" not in col_index:
             fail(f"an option in {ccy} needs the returns of FX.{ccy}", "currency", ccy)
-        rate = market.fx(ccy, row)
+        if options.expiry[k] <= np.datetime64(pd.Timestamp(as_of).date(), "D"):
+            fail(f"option has expired: expiry is on or before as_of {pd.Timestamp(as_of).date()}", "expiry",
+                 str(options.expiry[k]))
+        fx_rate = market.fx(ccy, row)
         under_col.append(col_index[under])
         fx_col.append(col_index[f"FX.{ccy}"] if ccy != base else -1)
-        spot.append(market.price(under, row) / rate)
-        fx.append(rate)
+        spot.append(market.price(under, row) / fx_rate)
+        fx.append(fx_rate)
     model = tuple(options.model[k] for k in k_of)
     spot_a = np.array(spot, dtype=np.float64)
     strike, vol, rate = options.strike[k_of], options.implied_vol[k_of], options.rate[k_of]
@@ -413,8 +416,10 @@ def build_book(
     ------
     InputError
         Unknown instrument or portfolio in positions, missing price or FX
-        rate, an FX option not in the base currency, an option currency
-        whose ``FX.<CCY>`` has no returns column.
+        rate, a held option expired on or before ``as_of`` (also when
+        ``options`` were validated for another date), an FX option not in
+        the base currency, an option currency whose ``FX.<CCY>`` has no
+        returns column.
 
     Notes
     -----
@@ -434,13 +439,13 @@ def build_book(
     pos = _read_positions(positions, positions_file)
     order = tuple(portfolios) if portfolios is not None else tuple(dict.fromkeys(pos["portfolio"]))
     p_index = {p: i for i, p in enumerate(order)}
-    for frame, column, ok, message in (
-        (pos, "portfolio", pos["portfolio"].isin(order), "portfolio not in the list of portfolios"),
-        (pos, "instrument", pos["instrument"].isin(options.instrument) | pos["instrument"].isin(col_index),
+    for column, ok, message in (
+        ("portfolio", pos["portfolio"].isin(order), "portfolio not in the list of portfolios"),
+        ("instrument", pos["instrument"].isin(options.instrument) | pos["instrument"].isin(col_index),
          "instrument is neither an option nor an instrument with a price series"),
     ):
         if not ok.all():
-            bad = frame.loc[~ok].iloc[0]
+            bad = pos.loc[~ok].iloc[0]
             raise InputError(message, file=positions_file, row=int(bad["row"]), column=column, value=bad[column])
     is_opt = pos["instrument"].isin(options.instrument).to_numpy()
     linear, opt_pos = pos.loc[~is_opt], pos.loc[is_opt]
