@@ -10,6 +10,7 @@ rule aggregate:
         figures=estimate_files(),
         quality=quality_files(),
         records=record_files(),
+        **extra_table_files(),
     output:
         receipt=result_path("aggregate.json"),
     log:

@@ -126,3 +126,8 @@ def market_outputs():
 
 def config_snapshot():
     return as_json(config)
+
+
+def extra_table_files():
+    """DuckDB table name -> Parquet file(s) the aggregate stores besides the figures."""
+    return {"sensitivities": result_path("scenarios", "sensitivities.parquet")}

@@ -31,9 +31,11 @@ rule build_scenarios:
     input:
         **market_outputs(),
         positions=rules.ingest_positions.output.positions,
+        instruments=rules.ingest_instruments.output.instruments,
     output:
         exposures=result_path("scenarios", "exposures.parquet"),
         pnl=result_path("scenarios", "pnl.parquet"),
+        sensitivities=result_path("scenarios", "sensitivities.parquet"),
         prov=prov_path("build_scenarios"),
     log:
         log_path("build_scenarios"),
@@ -46,7 +48,9 @@ rule build_scenarios:
         as_of=as_json(config["as_of"]),
         window_days=config["window_days"],
         positions_file=data_path("positions"),
-        code=code_version("scenarios", "market", "estimators/base", "errors", "pipeline", "provenance"),
+        instruments_file=data_path("instruments"),
+        base_currency=config["base_currency"],
+        code=code_version("scenarios", "market", "options", "estimators/base", "errors", "pipeline", "provenance"),
     conda:
         ENV
     script:
