@@ -267,7 +267,8 @@ class WindowReplay:
         P&L from the highest to the lowest later point of the cumulative
         path (≤ 0).
     drawdown_from, drawdown_to : (P, W) datetime64[D]
-        Close at the peak and at the trough; NaT when there is no drawdown,
+        Last close at the peak level before the trough, and the trough;
+        NaT when there is no drawdown,
         and ``drawdown_from`` is NaT when the peak is the close before the
         first return of the history.
     worst_day_pnl : (P, W) float
