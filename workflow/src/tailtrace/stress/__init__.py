@@ -13,11 +13,15 @@ from .hypothetical import run_hypothetical
 from .instruments import InstrumentMeta
 from .liquidity import liquidity_adjusted_es, liquidity_horizons
 from .records import StressRecord, records_to_frame
+from .run import StressSettings, run_stress, stressed_samples
 from .reverse import default_groups, group_loadings, reverse_stress, reverse_targets
 from .shocks import load_shock_scenarios, resolve_scenarios
 from .stressed import find_stressed_window, stressed_sample
 
 __all__ = [
+    "StressSettings",
+    "run_stress",
+    "stressed_samples",
     "InstrumentMeta",
     "StressRecord",
     "records_to_frame",
