@@ -8,6 +8,7 @@ import pytest
 from tailtrace.errors import ConfigError
 from tailtrace.estimators import historical
 from tailtrace.estimators.base import RiskSample, linear_revalue
+from tailtrace.stress.run import stressed_samples
 from tailtrace.stress.stressed import find_stressed_window, rolling_expected_shortfall, stressed_sample
 
 
@@ -142,3 +143,21 @@ def test_stressed_sample_rejects_a_window_of_another_history(business_days):
     win = find_stressed_window(r, dates, sample.revalue, portfolios=sample.portfolios).window()
     with pytest.raises(ValueError, match="does not belong to this history"):
         stressed_sample(sample, dates + 1, win)
+
+
+def test_portfolios_sharing_a_stressed_window_share_a_sample(business_days):
+    rng = np.random.default_rng(9)
+    H = 1000
+    r = rng.normal(0.0, 0.004, size=(H, 1))
+    r[300:306, 0] = -0.07  # hurts the long books
+    r[700:706, 0] = 0.09  # hurts the short book
+    values = np.array([[1000.0], [-500.0], [300.0]])
+    revalue = linear_revalue(values)
+    sample = RiskSample(
+        as_of=business_days(H)[-1], portfolios=("a", "b", "c"), instruments=("x",), dates=business_days(H)[-500:],
+        returns=r[-500:], history=r, values=values, pnl=revalue(r[-500:], 1), revalue=revalue,
+    )
+    scan = find_stressed_window(r, business_days(H), revalue, portfolios=sample.portfolios, basis="per_portfolio")
+    samples = stressed_samples(sample, business_days(H), scan)
+    assert [s.portfolios for s in samples] == [("a", "c"), ("b",)]
+    assert samples[0].dates[0] == scan.window("a").start_date == scan.window("c").start_date

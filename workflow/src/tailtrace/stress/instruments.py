@@ -72,13 +72,6 @@ class InstrumentMeta:
             dtype=bool,
         )
 
-    def index_of(self, instrument: str) -> int | None:
-        """Column of ``instrument``, or None when it is not in the universe."""
-        try:
-            return self.instruments.index(instrument)
-        except ValueError:
-            return None
-
     def fx_column(self) -> np.ndarray:
         """(N,) int: column of the FX rate translating each instrument to base, or -1.
 
@@ -87,11 +80,11 @@ class InstrumentMeta:
         and currencies without an FX instrument map to -1.
         """
         is_fx = self.is_fx
+        column = {name: j for j, name in enumerate(self.instruments)}
         out = np.full(self.n, -1, dtype=int)
         for i, ccy in enumerate(self.currency):
             if not is_fx[i] and ccy != self.base_currency:
-                j = self.index_of(FX_PREFIX + ccy)
-                out[i] = -1 if j is None else j
+                out[i] = column.get(FX_PREFIX + ccy, -1)
         return out
 
     def translate_to_base(self, local_log_shocks: np.ndarray) -> np.ndarray:

@@ -142,7 +142,7 @@ class StressRun:
 
 
 def stressed_samples(sample: RiskSample, history_dates: np.ndarray, scan: StressedWindowScan) -> list[RiskSample]:
-    """Stressed samples to run the estimators on: one (aggregate basis) or one per portfolio.
+    """Stressed samples to run the estimators on, one per distinct stressed window.
 
     Parameters
     ----------
@@ -153,11 +153,17 @@ def stressed_samples(sample: RiskSample, history_dates: np.ndarray, scan: Stress
     Returns
     -------
     list of RiskSample
-        For the per-portfolio basis, sample ``g`` holds portfolio ``g`` only.
+        Aggregate basis: one sample with every portfolio. Per-portfolio
+        basis: portfolios that share a window share a sample (often all of
+        them, when one crisis dominates the history), in portfolio order of
+        their first member.
     """
     if scan.basis == BASIS_AGGREGATE:
         return [stressed_sample(sample, history_dates, scan.window(0))]
-    return [stressed_sample(sample, history_dates, scan.window(g), portfolios=[g]) for g in scan.labels]
+    groups: dict[int, list[str]] = {}
+    for label, w in zip(scan.labels, scan.best):
+        groups.setdefault(int(w), []).append(label)
+    return [stressed_sample(sample, history_dates, scan.window(names[0]), portfolios=names) for names in groups.values()]
 
 
 def _window_rows(as_of: np.datetime64, scan: StressedWindowScan) -> list[dict]:
@@ -242,6 +248,6 @@ def run_stress(
     lh = liquidity_horizons(meta, st.lh_by_asset_class, default=st.lh_default_days, buckets=st.lh_buckets_days)
     lh_kw = dict(confidence=st.lh_confidence, base_horizon=st.lh_base_horizon_days, buckets=st.lh_buckets_days)
     rows = liquidity_adjusted_es(sample.returns, rev, lh, portfolios=names, **lh_kw).rows(as_of, "current")
-    for s in stressed_samples(sample, history_dates, scan):  # one, or one per portfolio
+    for s in stressed_samples(sample, history_dates, scan):  # one per distinct window
         rows += liquidity_adjusted_es(s.returns, s.revalue, lh, portfolios=s.portfolios, **lh_kw).rows(as_of, "stressed")
     return StressRun(recs, rows, scan, _window_rows(as_of, scan))
