@@ -14,6 +14,7 @@ from .yamlconfig import load_yaml_document, parse_date, schema_path
 
 __all__ = [
     "horizon_log_returns",
+    "check_history_dates",
     "revalue_path",
     "WorstLosses",
     "worst_losses",
@@ -83,7 +84,8 @@ def revalue_path(revalue: Revalue, cumulative_log_returns: np.ndarray) -> np.nda
     return np.concatenate(cols, axis=1)
 
 
-def _check_dates(history: np.ndarray, history_dates: np.ndarray) -> np.ndarray:
+def check_history_dates(history: np.ndarray, history_dates: np.ndarray) -> np.ndarray:
+    """``history_dates`` as datetime64[D], checked to match ``history`` rows and to increase."""
     dates = np.asarray(history_dates).astype("datetime64[D]")
     if dates.shape != (np.shape(history)[0],):
         raise ValueError(f"history_dates has shape {dates.shape}, history has {np.shape(history)[0]} rows")
@@ -171,7 +173,7 @@ def worst_losses(
     the minimum P&L per portfolio and its window are kept. Ties go to the
     earliest window.
     """
-    dates = _check_dates(history, history_dates)
+    dates = check_history_dates(history, history_dates)
     hs = np.asarray([int(h) for h in horizons], dtype=int)
     P = len(portfolios)
     pnl = np.empty((P, hs.size))
@@ -370,7 +372,7 @@ def replay_windows(
     is ``V_k = revalue(Σ_{t≤k} r_t, k)``, the window P&L is ``V_K`` and the
     drawdown ``min_k (V_k − max_{j≤k} V_j)`` with ``V_0 = 0``.
     """
-    dates = _check_dates(history, history_dates)
+    dates = check_history_dates(history, history_dates)
     P, W = len(portfolios), len(windows)
     res = {
         "start_dates": np.empty(W, dtype="datetime64[D]"),

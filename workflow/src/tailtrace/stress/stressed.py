@@ -11,7 +11,7 @@ from numpy.lib.stride_tricks import sliding_window_view
 from ..errors import ConfigError
 from ..estimators.base import RiskSample
 from ..estimators.tail import tail_count
-from .historical import horizon_log_returns
+from .historical import check_history_dates, horizon_log_returns
 
 __all__ = [
     "BASIS_AGGREGATE",
@@ -193,10 +193,8 @@ def find_stressed_window(
     """
     if basis not in (BASIS_AGGREGATE, BASIS_PER_PORTFOLIO):
         raise ConfigError(f"basis must be '{BASIS_AGGREGATE}' or '{BASIS_PER_PORTFOLIO}', got {basis!r}")
-    dates = np.asarray(history_dates).astype("datetime64[D]")
-    H = np.shape(history)[0]
-    if dates.shape != (H,):
-        raise ValueError(f"history_dates has shape {dates.shape}, history has {H} rows")
+    dates = check_history_dates(history, history_dates)
+    H = dates.size
     if not 1 <= horizon_days <= length_days:
         raise ConfigError(f"horizon_days must be between 1 and length_days ({length_days}), got {horizon_days}")
     if length_days > H:
@@ -248,9 +246,7 @@ def stressed_sample(
         ``pnl`` recomputed; ``as_of``, positions and revaluation unchanged.
         Every estimator runs on it unchanged.
     """
-    dates = np.asarray(history_dates).astype("datetime64[D]")
-    if dates.shape != (sample.history.shape[0],):
-        raise ValueError(f"history_dates has shape {dates.shape}, sample.history has {sample.history.shape[0]} rows")
+    dates = check_history_dates(sample.history, history_dates)
     s, e = window.start_index, window.end_index + 1
     if s < 0 or e > dates.size or dates[s] != window.start_date or dates[e - 1] != window.end_date:
         raise ValueError("the stressed window does not belong to this history")
