@@ -263,6 +263,12 @@ def reverse_stress(
     revaluation call per step (the scan shares one set of shocks across
     portfolios; a bisection step revalues P·2G shock vectors). For a
     linear long position of value V the answer is ``s = −target / V``.
+
+    References
+    ----------
+    Basel Committee on Banking Supervision, *Principles for sound stress
+    testing practices and supervision*, May 2009 (reverse stress testing;
+    recalled from memory).
     """
     if not 0 < max_fall < 1 or not max_rise > 0:
         raise ConfigError(f"need 0 < max_fall < 1 and max_rise > 0, got {max_fall} and {max_rise}")
