@@ -9,7 +9,12 @@ from tailtrace.errors import ConfigError
 from tailtrace.estimators import historical
 from tailtrace.estimators.base import RiskSample, linear_revalue
 from tailtrace.stress.run import stressed_samples
-from tailtrace.stress.stressed import find_stressed_window, rolling_expected_shortfall, stressed_sample
+from tailtrace.stress.stressed import (
+    find_stressed_window,
+    rolling_expected_shortfall,
+    stressed_sample,
+    window_from_dates,
+)
 
 
 def _naive_es(pnl: np.ndarray, confidence: float) -> float:
@@ -161,3 +166,14 @@ def test_portfolios_sharing_a_stressed_window_share_a_sample(business_days):
     samples = stressed_samples(sample, business_days(H), scan)
     assert [s.portfolios for s in samples] == [("a", "c"), ("b",)]
     assert samples[0].dates[0] == scan.window("a").start_date == scan.window("c").start_date
+
+
+def test_window_rebuilt_from_its_dates_gives_the_same_sample(business_days):
+    r, dates, _ = _crisis_series(business_days)
+    sample = _sample(r, dates, np.ones((2, 2)))
+    win = find_stressed_window(r, dates, sample.revalue, portfolios=sample.portfolios).window()
+    again = window_from_dates(dates, str(win.start_date), str(win.end_date), es=win.es)
+    assert (again.start_index, again.end_index, again.length_days) == (win.start_index, win.end_index, 250)
+    np.testing.assert_array_equal(stressed_sample(sample, dates, again).returns, stressed_sample(sample, dates, win).returns)
+    with pytest.raises(ValueError, match="not a span of trading days"):
+        window_from_dates(dates, "2018-01-06", str(win.end_date))  # a Saturday

@@ -20,6 +20,7 @@ __all__ = [
     "StressedWindowScan",
     "rolling_expected_shortfall",
     "find_stressed_window",
+    "window_from_dates",
     "stressed_sample",
 ]
 
@@ -217,6 +218,43 @@ def find_stressed_window(
         horizon_days=int(horizon_days),
         confidence=float(confidence),
     )
+
+
+def window_from_dates(
+    history_dates: np.ndarray,
+    start_date: np.datetime64 | str,
+    end_date: np.datetime64 | str,
+    *,
+    label: str = BASIS_AGGREGATE,
+    es: float = float("nan"),
+    horizon_days: int = 1,
+    confidence: float = 0.975,
+) -> StressedWindow:
+    """Rebuild a :class:`StressedWindow` from its stored dates (e.g. a ``stressed_windows`` row).
+
+    Parameters
+    ----------
+    history_dates : (H,) datetime64
+    start_date, end_date : date-like
+        First and last trading day of the window; both must be in ``history_dates``.
+    label, es, horizon_days, confidence
+        Carried through for reporting.
+
+    Returns
+    -------
+    StressedWindow
+
+    Raises
+    ------
+    ValueError
+        A date that is not a trading day of this history.
+    """
+    dates = np.asarray(history_dates).astype("datetime64[D]")
+    start, end = np.datetime64(start_date, "D"), np.datetime64(end_date, "D")
+    s, e = np.searchsorted(dates, start), np.searchsorted(dates, end)
+    if s >= dates.size or e >= dates.size or dates[s] != start or dates[e] != end or e < s:
+        raise ValueError(f"stressed window {start} to {end} is not a span of trading days of this history")
+    return StressedWindow(label, int(s), int(e), start, end, float(es), int(e - s + 1), int(horizon_days), float(confidence))
 
 
 def stressed_sample(
