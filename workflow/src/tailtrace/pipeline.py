@@ -28,6 +28,7 @@ __all__ = [
     "load_returns",
     "as_of_seed",
     "parse_json_param",
+    "run_stress_step",
 ]
 
 log = logging.getLogger("tailtrace")
@@ -213,3 +214,77 @@ def parse_json_param(value: str | Mapping[str, Any]) -> Any:
     return json.loads(value) if isinstance(value, str) else value
 
 
+
+
+def _rows_table(rows: list[dict], columns: Mapping[str, str]) -> pa.Table:
+    types = {"DATE": pa.date32(), "VARCHAR": pa.string(), "DOUBLE": pa.float64(), "INTEGER": pa.int32(),
+             "BIGINT": pa.int64(), "BOOLEAN": pa.bool_()}
+    schema = pa.schema([(name, types[kind.split()[0]]) for name, kind in columns.items()])
+    clean = [{k: (v.item() if isinstance(v, np.generic) else v) for k, v in r.items()} for r in rows]
+    return pa.Table.from_pylist(clean, schema=schema)
+
+
+def run_stress_step(market_files: Mapping[str, str], exposures: str, positions: str, instruments: str,
+                    windows_file: str, shocks_file: str, outputs: Mapping[str, str], *, settings: Mapping[str, Any],
+                    stressed_methods: Sequence[str], method_options: Mapping[str, Mapping[str, Any]],
+                    confidences: Sequence[float], horizons: Sequence[int], window_days: int, seed: int,
+                    currency: str, positions_file: str, instruments_file: str) -> dict[str, Any]:
+    """Stress figures of every as_of, and the stressed-calibration figures.
+
+    Stressed calibration: each method in ``stressed_methods`` is rerun on the
+    worst window found in the history (``stress.stressed_window``) and
+    written with the method name ``<method>_stressed``.
+    """
+    from .estimators.registry import get_estimator
+    from .figures import estimate_table
+    from .scenarios import build_sample
+    from .stress.historical import load_stress_windows
+    from .stress.instruments import InstrumentMeta
+    from .stress.liquidity import LIQUIDITY_ES_COLUMNS
+    from .stress.records import records_to_frame
+    from .stress.run import STRESSED_WINDOW_COLUMNS, StressSettings, run_stress, stressed_samples
+    from .stress.shocks import load_shock_scenarios
+
+    market = _market_for_books(market_files)
+    instr = pq.read_table(instruments)
+    asset = dict(zip(instr.column("instrument").to_pylist(), instr.column("asset_class").to_pylist()))
+    ccy = dict(zip(instr.column("instrument").to_pylist(), instr.column("currency").to_pylist()))
+    days = sorted(set(pq.read_table(exposures, columns=["as_of"]).column("as_of").to_numpy().astype("datetime64[D]")))
+    books = books_for(market, pq.read_table(positions), instr, days, base_currency=currency,
+                      positions_file=positions_file, instruments_file=instruments_file)
+    windows = load_stress_windows(windows_file)
+    scenarios = load_shock_scenarios(shocks_file)
+    config = StressSettings.from_config(settings)
+    records, liquidity, scans, figures, notes = [], [], [], [], {}
+    for book in books:
+        sample = build_sample(market, book, window_days)
+        meta = InstrumentMeta.from_columns(sample.instruments, [asset[i] for i in sample.instruments],
+                                           [ccy[i] for i in sample.instruments], currency)
+        row = int(np.searchsorted(market.dates, book.as_of))
+        local = market.local[row, [market.column(i) for i in sample.instruments]]
+        run = run_stress(sample, sample.history_dates, meta, windows=windows, scenarios=scenarios, settings=config,
+                         prices=local)
+        records += run.records
+        liquidity += run.liquidity_rows
+        scans += run.stressed_window_rows
+        for stressed in stressed_samples(sample, sample.history_dates, run.stressed):
+            for method in stressed_methods:
+                result = get_estimator(method)(stressed, confidences, horizons, options=method_options.get(method, {}),
+                                               seed=as_of_seed(seed, book.as_of))
+                figures.append(estimate_table(result, as_of=book.as_of, portfolios=stressed.portfolios,
+                                              method=f"{method}_stressed", confidences=confidences,
+                                              horizons=horizons, currency=currency))
+        notes[str(book.as_of)] = run.stressed_window_rows
+    results = pa.Table.from_pandas(records_to_frame(records), preserve_index=False)
+    results = results.cast(pa.schema([(f.name, pa.date32() if f.name in ("as_of", "start_date", "end_date") else f.type)
+                                      for f in results.schema]))
+    write_parquet(results.replace_schema_metadata(None), outputs["results"])
+    write_parquet(_rows_table(liquidity, LIQUIDITY_ES_COLUMNS), outputs["liquidity"])
+    write_parquet(_rows_table(scans, STRESSED_WINDOW_COLUMNS), outputs["windows"])
+    if figures:
+        write_parquet(pa.concat_tables(figures), outputs["figures"])
+    else:
+        from .figures import FIGURE_SCHEMA
+
+        write_parquet(FIGURE_SCHEMA.empty_table(), outputs["figures"])
+    return notes
