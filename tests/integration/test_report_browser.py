@@ -6,7 +6,6 @@ root; the tests skip, saying why, only when it cannot be installed.
 
 from __future__ import annotations
 
-import html.parser
 import importlib.util
 import os
 import re
@@ -15,7 +14,6 @@ import subprocess
 import sys
 from pathlib import Path
 
-import duckdb
 import pytest
 
 from tailtrace.report import ReportOptions, build_report
@@ -88,39 +86,6 @@ def built(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
     return {"db": db, "html": out, "root": root}
 
 
-class _Cells(html.parser.HTMLParser):
-    """Collects headline cells (data attributes and shown text) and script tags."""
-
-    def __init__(self) -> None:
-        super().__init__()
-        self.cells: list[dict[str, str]] = []
-        self.scripts = 0
-        self._current: dict[str, str] | None = None
-        self._in_table = 0
-
-    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
-        a = {k: v or "" for k, v in attrs}
-        if tag == "script":
-            self.scripts += 1
-        if tag == "table" and "headline-table" in a.get("class", ""):
-            self._in_table += 1
-        if tag == "span" and a.get("class") == "v" and self._current is not None:
-            self._current["text"] = ""
-        if tag == "td" and self._in_table and "data-value" in a:
-            self._current = a
-
-    def handle_data(self, data: str) -> None:
-        if self._current is not None and "text" in self._current:
-            self._current["text"] += data
-
-    def handle_endtag(self, tag: str) -> None:
-        if tag == "span" and self._current is not None and "text" in self._current:
-            self.cells.append(self._current)
-            self._current = None
-        if tag == "table" and self._in_table:
-            self._in_table -= 1
-
-
 def test_console_capture_detects_a_script_error(chromium: str, tmp_path: Path) -> None:
     # Control: proves the stderr parsing below really sees page errors.
     page = tmp_path / "broken.html"
@@ -149,27 +114,18 @@ def test_dom_headline_numbers_equal_database(chromium: str, built: dict[str, Pat
     assert done.returncode == 0, done.stderr[-2000:]
     assert _console_errors(done.stderr) == [], done.stderr[-2000:]
     dom = done.stdout
-    parser = _Cells()
+    parser = fx.HeadlineCells()
     parser.feed(dom)
     assert parser.scripts == 0
     assert fx.EVIL not in dom and "&lt;script&gt;alert(1)&lt;/script&gt;" in dom
-    with duckdb.connect(str(built["db"]), read_only=True) as con:
-        rows = con.execute(
-            "SELECT portfolio, method, confidence, horizon_days, var, es FROM risk_figures WHERE as_of = ?",
-            [fx.AS_OF]).fetchall()
-    expected = {}
-    for p, m, c, h, var, es in rows:
-        expected[(p, m, repr(c), str(h), "var")] = var
-        expected[(p, m, repr(c), str(h), "es")] = es
-    seen = {}
-    for cell in parser.cells:
-        key = (cell["data-portfolio"], cell["data-method"], cell["data-confidence"], cell["data-horizon"],
-               cell["data-metric"])
-        seen[key] = cell
-    assert set(seen) == set(expected)
+    expected = fx.db_headline(built["db"])
+    seen = parser.by_key()
+    assert len(parser.cells) == len(expected) and set(seen) == set(expected)
     for key, value in expected.items():
         assert float(seen[key]["data-value"]) == value
         assert seen[key]["text"] == f"{value:,.0f}"
+    # The breach banner comes before the headline tables in the rendered page too.
+    assert 0 < dom.index('class="banner banner-breach"') < dom.index('id="headline"')
 
 
 def test_prints_to_pdf(chromium: str, built: dict[str, Path], tmp_path: Path) -> None:

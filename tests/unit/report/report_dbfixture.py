@@ -8,6 +8,7 @@ the "not computed" paths.
 from __future__ import annotations
 
 import datetime as dt
+import html.parser
 import json
 from pathlib import Path
 from typing import Iterable
@@ -27,6 +28,8 @@ __all__ = [
     "write_fixture_db",
     "write_scenario_pnl",
     "write_limits",
+    "HeadlineCells",
+    "db_headline",
 ]
 
 AS_OF = dt.date(2024, 6, 28)
@@ -232,3 +235,54 @@ def write_limits(path: str | Path, rows: Iterable[tuple[object, ...]], *, method
         writer.writerow(header)
         writer.writerows(rows)
     return Path(path)
+
+
+class HeadlineCells(html.parser.HTMLParser):
+    """Collect the headline tables' cells (data attributes and shown text) and count script tags."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.cells: list[dict[str, str]] = []
+        self.scripts = 0
+        self._current: dict[str, str] | None = None
+        self._in_table = 0
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        a = {k: v or "" for k, v in attrs}
+        if tag == "script":
+            self.scripts += 1
+        if tag == "table" and "headline-table" in a.get("class", ""):
+            self._in_table += 1
+        if tag == "span" and a.get("class") == "v" and self._current is not None:
+            self._current["text"] = ""
+        if tag == "td" and self._in_table and "data-value" in a:
+            self._current = a
+
+    def handle_data(self, data: str) -> None:
+        if self._current is not None and "text" in self._current:
+            self._current["text"] += data
+
+    def handle_endtag(self, tag: str) -> None:
+        if tag == "span" and self._current is not None and "text" in self._current:
+            self.cells.append(self._current)
+            self._current = None
+        if tag == "table" and self._in_table:
+            self._in_table -= 1
+
+    def by_key(self) -> dict[tuple[str, str, str, str, str], dict[str, str]]:
+        """Cells keyed by (portfolio, method, confidence repr, horizon, metric)."""
+        return {(c["data-portfolio"], c["data-method"], c["data-confidence"], c["data-horizon"], c["data-metric"]): c
+                for c in self.cells}
+
+
+def db_headline(path: str | Path, as_of: dt.date = AS_OF) -> dict[tuple[str, str, str, str, str], float]:
+    """The risk_figures of ``as_of`` keyed like :meth:`HeadlineCells.by_key`, read straight from DuckDB."""
+    with duckdb.connect(str(path), read_only=True) as con:
+        rows = con.execute(
+            "SELECT portfolio, method, confidence, horizon_days, var, es FROM risk_figures WHERE as_of = ?", [as_of]
+        ).fetchall()
+    out = {}
+    for p, m, c, h, var, es in rows:
+        out[(p, m, repr(c), str(h), "var")] = var
+        out[(p, m, repr(c), str(h), "es")] = es
+    return out

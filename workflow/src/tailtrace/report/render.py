@@ -203,8 +203,8 @@ def _headline_tables(c: ReportContent, flags: dict[tuple[Any, ...], Any]) -> lis
                                          **key))
                     cells.append(_ratio_cell(flags.get((p, metric, round(conf, 10), h))))
                     rows.append(f"<tr>{''.join(cells)}</tr>")
-        caption = (f"{esc(p)} <span class=\"sub\">VaR and ES by method, positive numbers are losses in "
-                   f"{esc(o.base_currency)}</span>")
+        caption = (f'<span class="vh">{esc(p)}: </span>VaR and ES by method <span class="sub">(positive '
+                   f"numbers are losses in {esc(o.base_currency)})</span>")
         out.append(f"<h3>{esc(p)}</h3>" + table(caption, header, rows, cls="headline-table"))
     return out
 
@@ -311,27 +311,37 @@ def _backtest_section(c: ReportContent) -> str:
         return _section("backtest", title, _notice(f"Backtest {NOT_COMPUTED}."))
     if bt.empty:
         return _section("backtest", title, _notice(f"No backtest results for {c.as_of.isoformat()}."))
-    rows = []
-    for r in bt.itertuples(index=False):
-        window = f"{fmt_date(r.first_date)} to {fmt_date(r.last_date)}"
-        expected = f"{float(r.expected_exceptions):.1f}" if is_number(r.expected_exceptions) else NA
-        rows.append(
-            f'<tr><th scope="row">{esc(r.portfolio)}</th>{_td(esc(r.method))}{_td(fmt_confidence(r.confidence))}'
-            f"{_td(str(int(r.n)) if is_number(r.n) else NA, cls='num')}{_td(window)}"
-            f"{_td(str(int(r.exceptions)) if is_number(r.exceptions) else NA, cls='num', exceptions=r.exceptions)}"
-            f"{_td(expected, cls='num')}{_pcell(r.kupiec_p)}{_pcell(r.independence_p)}{_pcell(r.cc_p)}"
-            f"{_td(_zone(r.zone))}{_td(f'{float(r.plus_factor):.2f}' if is_number(r.plus_factor) else NA, cls='num')}"
-            f"{_td(f'{float(r.es_z2):.2f}' if is_number(r.es_z2) else NA, cls='num')}{_td(_zone(r.es_zone))}</tr>"
-        )
-    header = [_th(h) for h in ("Portfolio", "Method", "Confidence")] + [_th("Days", cls="num"), _th("Window")] + [
-        _th(h, cls="num") for h in ("Exceptions", "Expected", "Kupiec p", "Independence p", "Cond. coverage p")
-    ] + [_th("Zone"), _th("Plus factor", cls="num"), _th("ES Z2", cls="num"), _th("ES zone")]
     text = ("<p>Each day's 1-day forecast, made with data up to the day before, against that day's P&L. An exception "
             "is a day whose loss exceeded VaR. Kupiec tests the exception rate, Christoffersen's independence test "
             "whether exceptions cluster, conditional coverage both together; “reject” marks p-values below "
             f"{_P_REJECT:g}. The traffic-light zone (green, yellow, red) and plus factor follow the Basel "
             "Committee's 1996 backtesting framework; the ES zone rests on the Acerbi–Székely Z2 statistic.</p>")
-    return _section("backtest", title, text + table("Backtest results per method", header, rows, cls="backtest"))
+    parts = [text]
+    for p, sub in bt.groupby("portfolio", sort=True):
+        windows = sub[["n", "first_date", "last_date"]].astype(str).drop_duplicates()
+        one = len(windows) == 1
+        rows = []
+        for r in sub.itertuples(index=False):
+            expected = f"{float(r.expected_exceptions):.1f}" if is_number(r.expected_exceptions) else NA
+            window = "" if one else (f"{_td(str(int(r.n)) if is_number(r.n) else NA, cls='num')}"
+                                     f"{_td(f'{fmt_date(r.first_date)} to {fmt_date(r.last_date)}', cls='date')}")
+            rows.append(
+                f'<tr><th scope="row">{esc(r.method)}</th>{_td(fmt_confidence(r.confidence))}{window}'
+                f"{_td(str(int(r.exceptions)) if is_number(r.exceptions) else NA, cls='num', exceptions=r.exceptions)}"
+                f"{_td(expected, cls='num')}{_pcell(r.kupiec_p)}{_pcell(r.independence_p)}{_pcell(r.cc_p)}"
+                f"{_td(_zone(r.zone))}"
+                f"{_td(f'{float(r.plus_factor):.2f}' if is_number(r.plus_factor) else NA, cls='num')}"
+                f"{_td(f'{float(r.es_z2):.2f}' if is_number(r.es_z2) else NA, cls='num')}{_td(_zone(r.es_zone))}</tr>"
+            )
+        header = [_th("Method"), _th("Confidence")] + ([] if one else [_th("Days", cls="num"), _th("Window")]) + [
+            _th(h, cls="num") for h in ("Exceptions", "Expected", "Kupiec p", "Independence p", "Conditional coverage p")
+        ] + [_th("Zone"), _th("Plus factor", cls="num"), _th("ES Z2", cls="num"), _th("ES zone")]
+        first = sub.iloc[0]
+        span = (f"{int(first.n) if is_number(first.n) else NA} days, {fmt_date(first.first_date)} to "
+                f"{fmt_date(first.last_date)}") if one else "windows differ by method"
+        caption = f'<span class="vh">Backtest of </span>{esc(p)} <span class="sub">({span})</span>'
+        parts.append(table(caption, header, rows, cls="backtest"))
+    return _section("backtest", title, "".join(parts))
 
 
 def _contributors_section(c: ReportContent) -> str:
@@ -391,7 +401,7 @@ def _quality_section(c: ReportContent) -> str:
     for r in q.head(limit).itertuples(index=False):
         rows.append(
             f"<tr>{_td(_severity(r.severity))}<th scope=\"row\">{esc(r.file)}</th>{_td(esc(r.instrument))}"
-            f"{_td(esc(r.check))}{_td(fmt_date(r.first_date))}{_td(fmt_date(r.last_date))}"
+            f"{_td(esc(r.check))}{_td(fmt_date(r.first_date), cls='date')}{_td(fmt_date(r.last_date), cls='date')}"
             f"{_td(str(int(r.n)) if is_number(r.n) else NA, cls='num')}"
             f"{_td(esc(r.detail) if isinstance(r.detail, str) else '')}</tr>"
         )

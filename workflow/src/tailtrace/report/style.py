@@ -37,13 +37,16 @@ a { color: var(--accent); }
 table { border-collapse: collapse; font-size: .88rem; font-variant-numeric: tabular-nums; }
 caption { caption-side: top; text-align: left; font-weight: 600; padding: .2rem 0 .4rem; }
 caption .sub { font-weight: 400; color: var(--muted); }
-th, td { padding: .3rem .6rem; border-bottom: 1px solid var(--rule); vertical-align: top; }
-thead th { text-align: left; border-bottom: 2px solid var(--ink); background: var(--pale); }
+th, td { padding: .3rem .55rem; border-bottom: 1px solid var(--rule); vertical-align: top; }
+thead th { vertical-align: bottom; text-align: left; border-bottom: 2px solid var(--ink); background: var(--pale); }
 tbody th { text-align: left; font-weight: 600; }
 tbody tr:nth-child(even) { background: #fafbfc; }
-td.num, th.num { text-align: right; white-space: nowrap; }
+td.num, th.num { text-align: right; }
+td.num { white-space: nowrap; }
 th.headline, td.headline { background: #eef3f7; font-weight: 700; }
 thead th .sub { display: block; font-weight: 400; font-size: .78rem; color: var(--muted); }
+td.date { white-space: nowrap; }
+.vh { position: absolute; width: 1px; height: 1px; overflow: hidden; clip: rect(0 0 0 0); white-space: nowrap; }
 td.na { color: var(--muted); text-align: right; }
 abbr { text-decoration: none; border-bottom: 1px dotted var(--muted); cursor: help; }
 .scl { font-size: .72rem; color: var(--muted); margin-left: .25rem; }
@@ -74,7 +77,10 @@ footer dd { margin: 0; word-break: break-all; }
   nav.toc { display: none; }
   h2 { break-after: avoid; page-break-after: avoid; }
   table, figure, .banner { break-inside: avoid; page-break-inside: avoid; }
+  h3, caption { break-after: avoid; page-break-after: avoid; }
   .table-wrap { overflow: visible; }
+  table { font-size: 7.8pt; }
+  th, td { padding: .15rem .35rem; }
   thead { display: table-header-group; }
   a { color: inherit; text-decoration: none; }
   * { -webkit-print-color-adjust: exact; print-color-adjust: exact; }

@@ -23,6 +23,7 @@ HEADLINE_CSV_COLUMNS = (
     "as_of", "portfolio", "method", "headline_method", "confidence", "horizon_days", "var", "es", "currency",
     "scaling", "n_obs", "var_se", "es_se", "var_lo", "var_hi", "run_id",
 )
+_METRIC_ORDER = {"var": 0, "es": 1}
 _SEVERITY_ORDER = {"error": 0, "critical": 0, "warning": 1, "warn": 1, "info": 2}
 
 
@@ -115,7 +116,9 @@ def disagreement_flags(figures: pd.DataFrame, ratio: float) -> pd.DataFrame:
     sign_split = ~positive & (max_v > 0)
     out["flagged"] = (positive & (out["ratio"].to_numpy() > ratio)) | sign_split
     out["note"] = np.where(sign_split, "one method shows no loss", "")
-    return out.loc[:, columns]
+    out = out.sort_values(["portfolio", "metric", "confidence", "horizon_days"], kind="mergesort",
+                          key=lambda s: s.map(_METRIC_ORDER) if s.name == "metric" else s)
+    return out.loc[:, columns].reset_index(drop=True)
 
 
 @dataclass(frozen=True)
