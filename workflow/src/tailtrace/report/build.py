@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import csv
 import os
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -45,14 +44,15 @@ class ReportResult:
 
 
 def _write_atomic(path: Path, text: str) -> None:
+    # Write beside the target, then rename: readers never see half a file.
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
+        with open(tmp, "w", encoding="utf-8", newline="") as handle:
             handle.write(text)
         os.replace(tmp, path)
     except BaseException:
-        Path(tmp).unlink(missing_ok=True)
+        tmp.unlink(missing_ok=True)
         raise
 
 
