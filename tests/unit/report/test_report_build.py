@@ -255,3 +255,27 @@ def test_as_of_accepts_date_objects(tmp_path: Path, full_db: Path, options: Repo
     by_text = _build(tmp_path / "a", full_db, options, as_of="2024-06-28")
     by_date = _build(tmp_path / "b", full_db, options, as_of=dt.datetime(2024, 6, 28, 17, 0))
     assert by_text == by_date
+
+
+def test_near_limit_and_unchecked_limits_are_called_out(tmp_path: Path, full_db: Path, options: ReportOptions) -> None:
+    limits = fx.write_limits(tmp_path / "l.csv", [
+        ("balanced_core", "var", 0.99, 1, 1_600_000),  # VaR ~1.48m: about 92%, near
+        ("no_such_book", "var", 0.99, 1, 1_000),
+    ])
+    html, _ = _build(tmp_path, full_db, options, limits_csv=limits)
+    assert 'class="banner banner-near"' in html and "No limit breached" in html
+    assert "1 limit at or above 90% utilisation" in html
+    assert "1 limit could not be checked: no matching figure" in html
+
+
+def test_charts_capped_and_pnl_from_several_files(tmp_path: Path, full_db: Path, pnl_file: Path) -> None:
+    opts = ReportOptions(base_currency="EUR", headline_method="historical", max_chart_portfolios=1)
+    html, _ = _build(tmp_path, full_db, opts, pnl_parquet=[pnl_file, pnl_file])
+    assert "Charts show the first 1 of 3 portfolios in name order" in html
+    assert html.count("data:image/svg+xml;base64,") == 4
+
+
+def test_headline_method_without_figures_is_noted(tmp_path: Path, full_db: Path) -> None:
+    opts = ReportOptions(base_currency="EUR", headline_method="cornish_fisher")
+    html, _ = _build(tmp_path, full_db, opts)
+    assert "The headline method cornish_fisher has no figures for 2024-06-28" in html

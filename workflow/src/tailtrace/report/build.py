@@ -6,6 +6,7 @@ import csv
 import os
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Sequence
 
 import pandas as pd
 
@@ -93,7 +94,7 @@ def build_report(
     out_csv: str | Path,
     options: ReportOptions,
     limits_csv: str | Path | None = None,
-    pnl_parquet: str | Path | None = None,
+    pnl_parquet: str | Path | Sequence[str | Path] | None = None,
 ) -> ReportResult:
     """Write the end-of-day report of ``as_of``.
 
@@ -108,7 +109,7 @@ def build_report(
     options : ReportOptions
     limits_csv : str, Path or None
         Limits file; ``None`` when no limits apply.
-    pnl_parquet : str, Path or None
+    pnl_parquet : str, Path, sequence of them, or None
         Scenario P&L for the distribution chart; ``None`` when not produced.
 
     Returns

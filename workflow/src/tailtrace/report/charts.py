@@ -241,8 +241,10 @@ def var_by_method_chart(
                                label="VaR of the headline method"))
         band = np.isfinite(lo) & np.isfinite(hi)
         if band.any():
-            ax.errorbar(var[band], y[band], xerr=np.vstack([var[band] - lo[band], hi[band] - var[band]]),
-                        fmt="none", ecolor=INK, elinewidth=1.0, capsize=3, label="VaR confidence band")
+            # Drawn from its own ends: a band need not contain the point estimate.
+            left, right = np.minimum(lo[band], hi[band]), np.maximum(lo[band], hi[band])
+            ax.errorbar((left + right) / 2, y[band], xerr=(right - left) / 2, fmt="none", ecolor=INK,
+                        elinewidth=1.0, capsize=3, label="VaR confidence band")
         ax.margins(x=0.08)
         ax.scatter(rows["es"].to_numpy(float), y, marker="D", s=22, facecolor="white", edgecolor=SECOND,
                    linewidth=1.3, zorder=3, label="ES")

@@ -220,7 +220,7 @@ def _provenance_facts(data: ReportData, opts: ReportOptions) -> dict[str, str]:
 
 def collect_report(
     db_path: str | Path, as_of: object, *, options: ReportOptions, limits_csv: str | Path | None = None,
-    pnl_parquet: str | Path | None = None,
+    pnl_parquet: str | Path | Sequence[str | Path] | None = None,
 ) -> ReportContent:
     """Read the database and compute every section of the report.
 
@@ -232,7 +232,7 @@ def collect_report(
     options : ReportOptions
     limits_csv : str, Path or None
         Limits file (see :func:`tailtrace.report.limits.read_limits`).
-    pnl_parquet : str, Path or None
+    pnl_parquet : str, Path, sequence of them, or None
         Scenario P&L (columns ``as_of, portfolio, date, pnl``).
 
     Returns

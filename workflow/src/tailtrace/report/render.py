@@ -171,38 +171,50 @@ def _scaling_marker(label: object) -> str:
     return f' <abbr class="scl" title="{esc(title)}">{esc(short)}</abbr>'
 
 
+def _uniform_scaling(fig: pd.DataFrame) -> dict[str, str]:
+    """Methods whose multi-day figures all share one scaling label (shown once, in the header)."""
+    multi = fig[fig["horizon_days"] > 1]
+    labels = multi.groupby("method")["scaling"].agg(lambda s: tuple(sorted({str(v) for v in s})))
+    return {m: v[0] for m, v in labels.items() if len(v) == 1}
+
+
 def _headline_tables(c: ReportContent, flags: dict[tuple[Any, ...], Any]) -> list[str]:
     o = c.options
     fig = c.figures
     assert fig is not None
     lookup = {(r.portfolio, r.method, round(float(r.confidence), 10), int(r.horizon_days)): r
               for r in fig.itertuples(index=False)}
-    header = [_th("Measure"), _th("Confidence"), _th("Horizon")]
+    uniform = _uniform_scaling(fig)
+    header = [_th("Figure")]
     for m in c.methods:
         head = m == o.headline_method
-        header.append(_th(esc(m), cls="num headline" if head else "num", sub="headline" if head else None))
+        # <wbr> lets long snake_case method names wrap at their underscores.
+        label = esc(m).replace("_", "_<wbr>")
+        subs = (["headline"] if head else []) + ([f"multi-day{_scaling_marker(uniform[m])}"]
+                                                 if _scaling_marker(uniform.get(m)) else [])
+        header.append(_th(label, cls="num headline" if head else "num", sub=" · ".join(subs) or None))
     header.append(_th("Max / min", cls="num", sub="across methods"))
     out = []
     for p in c.portfolios:
         rows = []
         for metric in ("var", "es"):
-            for conf in c.confidences:
-                for h in c.horizons:
-                    cells = [f'<th scope="row">{_METRIC[metric]}</th>', _td(fmt_confidence(conf)), _td(f"{h}-day")]
-                    for m in c.methods:
-                        r = lookup.get((p, m, round(conf, 10), h))
-                        key = dict(portfolio=p, method=m, metric=metric, confidence=repr(conf), horizon=h)
-                        cls = "headline" if m == o.headline_method else None
-                        value = getattr(r, metric) if r is not None else None
-                        if not is_number(value):
-                            cells.append(_td(NA, cls=" ".join(filter(None, ["na", cls])), **key))
-                            continue
-                        text = (f'<span class="v">{fmt_amount(value, o.decimals)}</span>'
-                                f"{_scaling_marker(r.scaling)}")
-                        cells.append(_td(text, cls=" ".join(filter(None, ["num", cls])), value=data_value(value),
-                                         **key))
-                    cells.append(_ratio_cell(flags.get((p, metric, round(conf, 10), h))))
-                    rows.append(f"<tr>{''.join(cells)}</tr>")
+            for i, (conf, h) in enumerate((cf, hz) for cf in c.confidences for hz in c.horizons):
+                cells = [f'<th scope="row">{_METRIC[metric]} {fmt_confidence(conf)} <span class="hz">{h}-day</span>'
+                         "</th>"]
+                for m in c.methods:
+                    r = lookup.get((p, m, round(conf, 10), h))
+                    key = dict(portfolio=p, method=m, metric=metric, confidence=repr(conf), horizon=h)
+                    cls = "headline" if m == o.headline_method else None
+                    value = getattr(r, metric) if r is not None else None
+                    if not is_number(value):
+                        cells.append(_td(NA, cls=" ".join(filter(None, ["na", cls])), **key))
+                        continue
+                    marker = "" if m in uniform else _scaling_marker(r.scaling)
+                    text = f'<span class="v">{fmt_amount(value, o.decimals)}</span>{marker}'
+                    cells.append(_td(text, cls=" ".join(filter(None, ["num", cls])), value=data_value(value), **key))
+                cells.append(_ratio_cell(flags.get((p, metric, round(conf, 10), h))))
+                group = ' class="group"' if i == 0 and metric != "var" else ""
+                rows.append(f"<tr{group}>{''.join(cells)}</tr>")
         caption = (f'<span class="vh">{esc(p)}: </span>VaR and ES by method <span class="sub">(positive '
                    f"numbers are losses in {esc(o.base_currency)})</span>")
         out.append(f"<h3>{esc(p)}</h3>" + table(caption, header, rows, cls="headline-table"))
@@ -254,8 +266,12 @@ def _headline_section(c: ReportContent) -> str:
                                                           "database."))
     intro = ("<p>Value at risk (VaR) is the loss the portfolio should not exceed with the stated confidence over "
              "the horizon; expected shortfall (ES) is the average loss in the cases beyond VaR. Methods sit side by "
-             "side; the last column divides the largest figure by the smallest. Markers after a figure say how a "
-             "multi-day horizon was obtained (see the basis table below).</p>")
+             "side; the last column divides the largest figure by the smallest. Markers (√t, sim, ovl) say how a "
+             "multi-day horizon was obtained: under the method's name when it holds for all its multi-day figures, "
+             "else after the figure (see the basis table below).</p>")
+    if c.options.headline_method not in c.methods:
+        intro += _notice(f"The headline method {esc(c.options.headline_method)} has no figures for "
+                         f"{c.as_of.isoformat()}; limits that name no method cannot be checked.")
     body = intro + "".join(_headline_tables(c, _flag_lookup(c))) + _basis_table(c)
     return _section("headline", "VaR and ES", body)
 

@@ -7,7 +7,7 @@ import time
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterator
+from typing import Iterator, Sequence
 
 import duckdb
 import numpy as np
@@ -218,14 +218,14 @@ def load_report_data(db_path: str | Path, as_of: object, *, attempts: int = 10, 
     return ReportData(as_of=day, db_path=path, **frames)
 
 
-def load_scenario_pnl(path: str | Path | None, as_of: object) -> pd.DataFrame | None:
+def load_scenario_pnl(path: str | Path | Sequence[str | Path] | None, as_of: object) -> pd.DataFrame | None:
     """Read the scenario P&L of ``as_of`` (columns portfolio, date, pnl).
 
     Parameters
     ----------
-    path : str, Path or None
-        Parquet file with columns ``as_of, portfolio, date, pnl``; ``None``
-        when the run produced none.
+    path : str, Path, sequence of them, or None
+        Parquet file(s) with columns ``as_of, portfolio, date, pnl``;
+        ``None`` when the run produced none.
     as_of : date-like
 
     Returns
@@ -234,18 +234,20 @@ def load_scenario_pnl(path: str | Path | None, as_of: object) -> pd.DataFrame | 
     """
     if path is None:
         return None
-    file = Path(path)
-    if not file.exists():
-        raise InputError("scenario P&L file not found", file=str(file))
+    files = [str(p) for p in path] if isinstance(path, (list, tuple)) else [str(path)]
+    for file in files:
+        if not Path(file).exists():
+            raise InputError("scenario P&L file not found", file=file)
     day = as_date(as_of)
     with duckdb.connect() as con:
-        names = [r[0] for r in con.execute("DESCRIBE SELECT * FROM read_parquet(?)", [str(file)]).fetchall()]
-        for name in PNL_COLUMNS:
-            if name not in names:
-                raise InputError("scenario P&L file lacks a required column", file=str(file), column=name)
+        for file in files:
+            names = [r[0] for r in con.execute("DESCRIBE SELECT * FROM read_parquet(?)", [file]).fetchall()]
+            for name in PNL_COLUMNS:
+                if name not in names:
+                    raise InputError("scenario P&L file lacks a required column", file=file, column=name)
         frame = con.execute(
             "SELECT CAST(portfolio AS VARCHAR) AS portfolio, CAST(date AS DATE) AS date, CAST(pnl AS DOUBLE) AS pnl "
-            "FROM read_parquet(?) WHERE CAST(as_of AS DATE) = ? ORDER BY portfolio, date",
-            [str(file), day],
+            "FROM read_parquet(?, union_by_name = true) WHERE CAST(as_of AS DATE) = ? ORDER BY portfolio, date",
+            [files, day],
         ).df()
     return frame

@@ -46,6 +46,10 @@ td.num { white-space: nowrap; }
 th.headline, td.headline { background: #eef3f7; font-weight: 700; }
 thead th .sub { display: block; font-weight: 400; font-size: .78rem; color: var(--muted); }
 td.date { white-space: nowrap; }
+table.headline-table { font-size: .84rem; }
+table.headline-table tbody th { white-space: nowrap; }
+.hz { color: var(--muted); font-weight: 400; }
+tr.group > * { border-top: 2px solid var(--ink); }
 .vh { position: absolute; width: 1px; height: 1px; overflow: hidden; clip: rect(0 0 0 0); white-space: nowrap; }
 td.na { color: var(--muted); text-align: right; }
 abbr { text-decoration: none; border-bottom: 1px dotted var(--muted); cursor: help; }
