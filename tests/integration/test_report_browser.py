@@ -45,7 +45,7 @@ def _install_chromium() -> str:
     if not hasattr(os, "geteuid") or os.geteuid() != 0 or shutil.which("apt-get") is None:
         return "chromium is not installed and cannot be: not root or no apt-get"
     env = dict(os.environ, DEBIAN_FRONTEND="noninteractive")
-    for cmd in (["apt-get", "update"], ["apt-get", "install", "-y", "--no-install-recommends", "chromium"]):
+    for cmd in (["apt-get", "update"], ["apt-get", "install", "-y", "chromium"]):
         done = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=900)
         if done.returncode != 0:
             return f"`{' '.join(cmd)}` failed: {done.stderr.strip()[-400:]}"

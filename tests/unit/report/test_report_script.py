@@ -50,7 +50,8 @@ def _load_script():
     return module
 
 
-def test_main_without_snakemake(tmp_path: Path, full_db: Path, pnl_file: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_main_without_snakemake(tmp_path: Path, full_db: Path, pnl_file: Path,
+                                capsys: pytest.CaptureFixture[str]) -> None:
     limits = fx.write_limits(tmp_path / "limits.csv", [("balanced_core", "var", 0.99, 1, 1_000_000)])
     code = _load_script().main([
         "--db", str(full_db), "--as-of", "2024-06-28", "--base-currency", "EUR", "--headline-method", "historical",

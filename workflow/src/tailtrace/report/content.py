@@ -116,6 +116,12 @@ def _chart_confidence(available: Sequence[float], wanted: float | None) -> float
     return values[-1]
 
 
+def _panels(frame: pd.DataFrame, shown: Sequence[str], cap: int) -> list[str]:
+    """Portfolios to draw: those of the tables that ``frame`` has, else its own first ``cap``."""
+    have = set(frame["portfolio"])
+    return [p for p in shown if p in have] or sorted(have)[:cap]
+
+
 def _label(method: str, confidence: float, horizon: int | None = None) -> str:
     text = f"{method}, {confidence * 100:g}%"
     return text if horizon is None else f"{text}, {horizon}-day"
@@ -128,7 +134,7 @@ def _pnl_chart(data: ReportData, pnl: pd.DataFrame | None, figures: pd.DataFrame
         return Chart(key, title, "", "", None, "Scenario P&L not computed in this run.")
     if pnl.empty:
         return Chart(key, title, "", "", None, f"The scenario P&L file has no rows for {data.as_of}.")
-    names = [p for p in shown if p in set(pnl["portfolio"])] or sorted(set(pnl["portfolio"]))[: opts.max_chart_portfolios]
+    names = _panels(pnl, shown, opts.max_chart_portfolios)
     marks = pd.DataFrame(columns=["portfolio", "var", "es"])
     label = "no 1-day figure to mark"
     if figures is not None and not figures.empty:
@@ -157,7 +163,7 @@ def _backtest_chart(data: ReportData, opts: ReportOptions, shown: Sequence[str])
     sub = frame[frame["method"] == method]
     conf = _chart_confidence(sub["confidence"], opts.chart_confidence)
     sub = sub[np.isclose(sub["confidence"].astype(float), conf)]
-    names = [p for p in shown if p in set(sub["portfolio"])] or sorted(set(sub["portfolio"]))[: opts.max_chart_portfolios]
+    names = _panels(sub, shown, opts.max_chart_portfolios)
     svg = charts.backtest_chart(sub, portfolios=names, currency=opts.base_currency, label=_label(method, conf, 1))
     caption = (f"Daily realised P&L (bars) against the 1-day VaR forecast made the day before ({method}, "
                f"{conf * 100:g}%), drawn as a negative line; crosses mark exceptions, days whose loss exceeded VaR.")
@@ -186,7 +192,7 @@ def _contributions_chart(view: ContributorView | None, present: bool, data: Repo
                          opts: ReportOptions) -> Chart:
     key, title = "chart-contributions", "Contributions to VaR"
     if view is None:
-        why = "Risk decomposition not computed in this run." if not present else f"No risk contributions for {data.as_of}."
+        why = f"No risk contributions for {data.as_of}." if present else "Risk decomposition not computed in this run."
         return Chart(key, title, "", "", None, why)
     names = sorted(set(view.rows["portfolio"]))[: opts.max_chart_portfolios]
     label = _label(view.method, view.confidence, view.horizon_days)

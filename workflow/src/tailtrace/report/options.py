@@ -68,7 +68,8 @@ class ReportOptions:
             raise ConfigError("report option headline_method must not be empty")
         ratio = float(self.disagreement_ratio)
         if not math.isfinite(ratio) or ratio <= 1.0:
-            raise ConfigError(f"report option disagreement_ratio must be a number above 1, got {self.disagreement_ratio!r}")
+            raise ConfigError(
+                f"report option disagreement_ratio must be a number above 1, got {self.disagreement_ratio!r}")
         if not 0.0 < float(self.near_limit) <= 1.0:
             raise ConfigError(f"report option near_limit must lie in (0, 1], got {self.near_limit!r}")
         for name in ("top_n", "max_chart_portfolios", "max_quality_rows", "db_attempts"):

@@ -80,6 +80,13 @@ def _section(key: str, title: str, body: str) -> str:
     return f'<section id="{key}" aria-labelledby="{key}-h"><h2 id="{key}-h">{esc(title)}</h2>{body}</section>'
 
 
+def _unavailable(key: str, title: str, frame: pd.DataFrame | None, absent: str, empty: str) -> str:
+    """The section of a table that is absent (says ``absent`` not computed) or has no rows (says ``empty``)."""
+    if frame is None:
+        return _section(key, title, _notice(f"{absent} {NOT_COMPUTED}."))
+    return _section(key, title, empty)
+
+
 def _header(c: ReportContent) -> str:
     o = c.options
     runs = ", ".join(esc(r) for r in c.run_ids) or NA
@@ -243,7 +250,10 @@ def _basis_table(c: ReportContent) -> str:
     basis = basis.sort_values(["method", "horizon_days"], key=lambda s: s.map(rank) if s.name == "method" else s)
     rows = []
     for r in basis.itertuples(index=False):
-        n = NA if not is_number(r.n_min) else (f"{int(r.n_min)}" if r.n_min == r.n_max else f"{int(r.n_min)}–{int(r.n_max)}")
+        if not is_number(r.n_min):
+            n = NA
+        else:
+            n = f"{int(r.n_min)}" if r.n_min == r.n_max else f"{int(r.n_min)}–{int(r.n_max)}"
         marker = _scaling_marker(r.scaling) if r.scaling in _SCALING else ""
         rows.append(f'<tr><th scope="row">{esc(r.method)}</th>{_td(f"{int(r.horizon_days)}-day")}'
                     f"{_td(esc(r.scaling) + marker)}{_td(n, cls='num')}</tr>")
@@ -259,11 +269,9 @@ def _flag_lookup(c: ReportContent) -> dict[tuple[Any, ...], Any]:
 
 
 def _headline_section(c: ReportContent) -> str:
-    if c.figures is None:
-        return _section("headline", "VaR and ES", _notice(f"Risk figures {NOT_COMPUTED}."))
-    if c.figures.empty:
-        return _section("headline", "VaR and ES", _notice(f"No risk figures for {c.as_of.isoformat()} in the "
-                                                          "database."))
+    if c.figures is None or c.figures.empty:
+        return _unavailable("headline", "VaR and ES", c.figures, "Risk figures",
+                            _notice(f"No risk figures for {c.as_of.isoformat()} in the database."))
     intro = ("<p>Value at risk (VaR) is the loss the portfolio should not exceed with the stated confidence over "
              "the horizon; expected shortfall (ES) is the average loss in the cases beyond VaR. Methods sit side by "
              "side; the last column divides the largest figure by the smallest. Markers (√t, sim, ovl) say how a "
@@ -323,10 +331,9 @@ def _pcell(value: object) -> str:
 def _backtest_section(c: ReportContent) -> str:
     title = "Backtest"
     bt = c.backtest
-    if bt is None:
-        return _section("backtest", title, _notice(f"Backtest {NOT_COMPUTED}."))
-    if bt.empty:
-        return _section("backtest", title, _notice(f"No backtest results for {c.as_of.isoformat()}."))
+    if bt is None or bt.empty:
+        return _unavailable("backtest", title, bt, "Backtest",
+                            _notice(f"No backtest results for {c.as_of.isoformat()}."))
     text = ("<p>Each day's 1-day forecast, made with data up to the day before, against that day's P&L. An exception "
             "is a day whose loss exceeded VaR. Kupiec tests the exception rate, Christoffersen's independence test "
             "whether exceptions cluster, conditional coverage both together; “reject” marks p-values below "
@@ -350,7 +357,8 @@ def _backtest_section(c: ReportContent) -> str:
                 f"{_td(f'{float(r.es_z2):.2f}' if is_number(r.es_z2) else NA, cls='num')}{_td(_zone(r.es_zone))}</tr>"
             )
         header = [_th("Method"), _th("Confidence")] + ([] if one else [_th("Days", cls="num"), _th("Window")]) + [
-            _th(h, cls="num") for h in ("Exceptions", "Expected", "Kupiec p", "Independence p", "Conditional coverage p")
+            _th(h, cls="num")
+            for h in ("Exceptions", "Expected", "Kupiec p", "Independence p", "Conditional coverage p")
         ] + [_th("Zone"), _th("Plus factor", cls="num"), _th("ES Z2", cls="num"), _th("ES zone")]
         first = sub.iloc[0]
         span = (f"{int(first.n) if is_number(first.n) else NA} days, {fmt_date(first.first_date)} to "
@@ -406,10 +414,9 @@ def _severity(value: object) -> str:
 def _quality_section(c: ReportContent) -> str:
     title = "Data quality"
     q = c.quality
-    if q is None:
-        return _section("quality", title, _notice(f"Data-quality checks {NOT_COMPUTED}."))
-    if q.empty:
-        return _section("quality", title, "<p>No data-quality findings: every check passed.</p>")
+    if q is None or q.empty:
+        return _unavailable("quality", title, q, "Data-quality checks",
+                            "<p>No data-quality findings: every check passed.</p>")
     limit = c.options.max_quality_rows
     counts = q["severity"].fillna("other").astype(str).value_counts().sort_index()
     summary = ", ".join(f"{int(n)} {esc(s)}" for s, n in counts.items())

@@ -107,7 +107,9 @@ def _is_lock_error(exc: BaseException) -> bool:
 
 
 @contextmanager
-def open_read_only(db_path: str | Path, *, attempts: int = 10, pause: float = 0.5) -> Iterator[duckdb.DuckDBPyConnection]:
+def open_read_only(
+    db_path: str | Path, *, attempts: int = 10, pause: float = 0.5
+) -> Iterator[duckdb.DuckDBPyConnection]:
     """Open the DuckDB file read-only, retrying while a writer holds it.
 
     Parameters
@@ -164,7 +166,8 @@ def _table_columns(con: duckdb.DuckDBPyConnection) -> dict[str, set[str]]:
 
 
 def _read_table(
-    con: duckdb.DuckDBPyConnection, table: str, columns: set[str], as_of: dt.date, run_ids: list[str] | None, db_path: str
+    con: duckdb.DuckDBPyConnection, table: str, columns: set[str], as_of: dt.date, run_ids: list[str] | None,
+    db_path: str,
 ) -> pd.DataFrame:
     required, optional = REPORT_TABLES[table]
     for name in required:
@@ -213,7 +216,8 @@ def load_report_data(db_path: str | Path, as_of: object, *, attempts: int = 10, 
         figures = frames["risk_figures"]
         run_ids = sorted({str(r) for r in figures["run_id"].dropna()}) if figures is not None else []
         frames["provenance"] = (
-            _read_table(con, "provenance", columns["provenance"], day, run_ids, path) if "provenance" in columns else None
+            _read_table(con, "provenance", columns["provenance"], day, run_ids, path)
+            if "provenance" in columns else None
         )
     return ReportData(as_of=day, db_path=path, **frames)
 
