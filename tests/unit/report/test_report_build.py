@@ -279,3 +279,23 @@ def test_headline_method_without_figures_is_noted(tmp_path: Path, full_db: Path)
     opts = ReportOptions(base_currency="EUR", headline_method="cornish_fisher")
     html, _ = _build(tmp_path, full_db, opts)
     assert "The headline method cornish_fisher has no figures for 2024-06-28" in html
+
+
+def test_nulls_everywhere_render_as_not_available(tmp_path: Path, pnl_file: Path, options: ReportOptions) -> None:
+    db = fx.write_fixture_db(tmp_path / "nulls.duckdb")
+    with duckdb.connect(str(db)) as con:
+        con.execute("UPDATE risk_figures SET var = NULL, scaling = NULL, n_obs = NULL "
+                    "WHERE method = ? AND horizon_days = ?", ["monte_carlo", 10])
+        con.execute("UPDATE backtest_forecasts SET exception = NULL, es = NULL WHERE method = ?", ["historical"])
+        con.execute("UPDATE backtest_summary SET zone = NULL, kupiec_p = NULL, n = NULL, es_zone = NULL")
+        con.execute("UPDATE data_quality SET severity = NULL, detail = NULL, n = NULL")
+        con.execute("UPDATE risk_contributions SET position_value = NULL, diversification_benefit = NULL")
+    limits = fx.write_limits(tmp_path / "l.csv", [("balanced_core", "var", 0.99, 10, 1.0, "monte_carlo")],
+                             method_column=True)
+    html, csv_text = _build(tmp_path, db, options, limits_csv=limits, pnl_parquet=pnl_file)
+    parser = fx.HeadlineCells()
+    parser.feed(html)
+    assert len(parser.cells) == 96 - 6  # the six nulled VaR figures show n/a, not a number
+    assert 'data-method="monte_carlo" data-metric="var" data-confidence="0.99" data-horizon="10">n/a</td>' in html
+    assert "1 limit could not be checked" in html
+    assert html.count("data:image/svg+xml;base64,") == 4

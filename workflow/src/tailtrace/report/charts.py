@@ -179,7 +179,7 @@ def backtest_chart(
         rows = forecasts[forecasts["portfolio"] == name].sort_values("date")
         dates = pd.to_datetime(rows["date"]).to_numpy()
         pnl = rows["pnl"].to_numpy(float)
-        exc = rows["exception"].to_numpy(bool)
+        exc = rows["exception"].to_numpy(dtype=bool, na_value=False)
         # One line collection instead of a patch per day: much faster to draw and smaller SVG.
         ax.vlines(dates, 0.0, pnl, color=LIGHT, linewidth=1.2, label="realised P&L")
         ax.plot(dates, -rows["var"].to_numpy(float), color=ACCENT, linewidth=1.3, label="-VaR forecast")

@@ -119,7 +119,7 @@ def _limit_rows(frame: pd.DataFrame, decimals: int) -> list[str]:
         rows.append(
             f"<tr>{_td(_tag(_STATUS_TEXT[r.status], _STATUS_CLASS[r.status]), status=r.status)}"
             f'<th scope="row">{esc(r.portfolio)}</th>{_td(_METRIC[r.metric])}{_td(fmt_confidence(r.confidence))}'
-            f"{_td(f'{int(r.horizon_days)}d')}{_td(esc(r.method))}"
+            f"{_td(f'{int(r.horizon_days)}-day')}{_td(esc(r.method))}"
             f"{_num(r.figure, decimals, role='figure', **key)}{_num(r.limit, decimals, role='limit', **key)}"
             f"{_td(fmt_percent(util) + gauge, cls='num')}{_num(r.headroom, decimals)}{_td(str(int(r.line)), cls='num')}"
             "</tr>"
