@@ -15,6 +15,12 @@ def full_db(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 
 @pytest.fixture(scope="session")
+def figures_db(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """Only risk_figures: enough for limit and headline tests, and quick to render (one chart)."""
+    return fx.write_fixture_db(tmp_path_factory.mktemp("db") / "figures.duckdb", tables=["risk_figures"])
+
+
+@pytest.fixture(scope="session")
 def pnl_file(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return fx.write_scenario_pnl(tmp_path_factory.mktemp("pnl") / "pnl.parquet")
 

@@ -132,14 +132,14 @@ def test_same_database_gives_same_bytes(tmp_path: Path, full_db: Path, pnl_file:
     assert first == second
 
 
-def test_no_breach_says_so(tmp_path: Path, full_db: Path, options: ReportOptions) -> None:
+def test_no_breach_says_so(tmp_path: Path, figures_db: Path, options: ReportOptions) -> None:
     limits = fx.write_limits(tmp_path / "l.csv", [("balanced_core", "var", 0.99, 1, 50_000_000)])
-    html, _ = _build(tmp_path, full_db, options, limits_csv=limits)
+    html, _ = _build(tmp_path, figures_db, options, limits_csv=limits)
     assert "No limit breached" in html and "class=\"banner banner-breach\"" not in html
 
 
-def test_without_limits_file(tmp_path: Path, full_db: Path, options: ReportOptions) -> None:
-    html, _ = _build(tmp_path, full_db, options)
+def test_without_limits_file(tmp_path: Path, figures_db: Path, options: ReportOptions) -> None:
+    html, _ = _build(tmp_path, figures_db, options)
     assert "No limits file was given" in html
 
 
@@ -251,18 +251,19 @@ def test_bad_options(kwargs: dict[str, object], message: str) -> None:
         ReportOptions(**base)  # type: ignore[arg-type]
 
 
-def test_as_of_accepts_date_objects(tmp_path: Path, full_db: Path, options: ReportOptions) -> None:
-    by_text = _build(tmp_path / "a", full_db, options, as_of="2024-06-28")
-    by_date = _build(tmp_path / "b", full_db, options, as_of=dt.datetime(2024, 6, 28, 17, 0))
+def test_as_of_accepts_date_objects(tmp_path: Path, figures_db: Path, options: ReportOptions) -> None:
+    by_text = _build(tmp_path / "a", figures_db, options, as_of="2024-06-28")
+    by_date = _build(tmp_path / "b", figures_db, options, as_of=dt.datetime(2024, 6, 28, 17, 0))
     assert by_text == by_date
 
 
-def test_near_limit_and_unchecked_limits_are_called_out(tmp_path: Path, full_db: Path, options: ReportOptions) -> None:
+def test_near_limit_and_unchecked_limits_are_called_out(tmp_path: Path, figures_db: Path,
+                                                        options: ReportOptions) -> None:
     limits = fx.write_limits(tmp_path / "l.csv", [
         ("balanced_core", "var", 0.99, 1, 1_600_000),  # VaR ~1.48m: about 92%, near
         ("no_such_book", "var", 0.99, 1, 1_000),
     ])
-    html, _ = _build(tmp_path, full_db, options, limits_csv=limits)
+    html, _ = _build(tmp_path, figures_db, options, limits_csv=limits)
     assert 'class="banner banner-near"' in html and "No limit breached" in html
     assert "1 limit at or above 90% utilisation" in html
     assert "1 limit could not be checked: no matching figure" in html

@@ -500,6 +500,23 @@ def render_html(content: ReportContent) -> str:
     -------
     str
         A complete HTML5 document with no external resources and no script.
+
+    Notes
+    -----
+    Section order: limits (breaches first), VaR and ES by method, model
+    disagreement, backtest, top contributors, data quality, charts, cautions.
+    Every status (breach, zone, severity) is written in words as well as
+    tinted, so it survives grey-scale printing and colour blindness.
+
+    References
+    ----------
+    Basel Committee on Banking Supervision (1996), *Supervisory framework for
+    the use of "backtesting" in conjunction with the internal models approach
+    to market risk capital requirements* (traffic-light zones, plus factors).
+    Kupiec (1995) and Christoffersen (1998), International Economic Review
+    39(4) (coverage and independence tests); Acerbi & Székely (2014),
+    "Backtesting Expected Shortfall", Risk (Z2). The report only displays
+    these statistics; they are computed by the backtest stage.
     """
     c = content
     title = f"{c.options.title} – {c.as_of.isoformat()}"
