@@ -157,3 +157,9 @@ def extra_table_files():
             "stressed_windows": result_path("stress", "stressed_windows.parquet"),
         })
     return files
+
+
+def limits_input():
+    """The limits file as a named input, or nothing when report.limits is null."""
+    path = config["report"]["limits"]
+    return {"limits": repo_path(path)} if path else {}

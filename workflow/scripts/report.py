@@ -65,23 +65,42 @@ def run(
 
 
 def _snakemake_main(smk: Any) -> None:
+    """One report per as_of of the run (``<as_of>.html/.csv``); the last one also as ``latest``.
+
+    The dated files are kept from earlier runs (Snakemake would delete a
+    declared output folder before rerunning), so the folder is the archive.
+    """
+    import json
+    import shutil
+
+    from tailtrace.provenance import step
+
     logging.basicConfig(filename=smk.log[0], level=logging.INFO, format="%(asctime)s %(levelname)s %(message)s",
                         force=True)
     logging.captureWarnings(True)
     inputs: Mapping[str, Any] = dict(smk.input.items())
     params: Mapping[str, Any] = dict(smk.params.items())
-    as_of = params.get("as_of") or smk.wildcards.as_of
-    try:
-        run(
-            str(inputs["db"]), str(as_of), out_html=str(smk.output.html), out_csv=str(smk.output.csv),
-            base_currency=params["base_currency"], headline_method=params["headline_method"],
-            limits=str(inputs["limits"]) if inputs.get("limits") else None,
-            pnl=str(inputs["pnl"]) if inputs.get("pnl") else None,
-            **{k: params.get(k) for k in _OPTION_PARAMS},
-        )
-    except Exception:
-        log.exception("report failed")
-        raise
+    receipt = json.loads(Path(inputs["receipt"]).read_text())
+    out_dir = Path(smk.output.html).parent
+    with step(smk) as notes:
+        written = []
+        for as_of in receipt["as_of"]:
+            html, csv = out_dir / f"{as_of}.html", out_dir / f"{as_of}.csv"
+            try:
+                run(
+                    str(params["database"]), str(as_of), out_html=str(html), out_csv=str(csv),
+                    base_currency=params["base_currency"], headline_method=params["headline_method"],
+                    limits=str(inputs["limits"]) if inputs.get("limits") else None,
+                    pnl=str(inputs["pnl"]) if inputs.get("pnl") else None,
+                    **{k: params.get(k) for k in _OPTION_PARAMS},
+                )
+            except Exception:
+                log.exception("report failed")
+                raise
+            written += [str(html), str(csv)]
+        shutil.copyfile(html, smk.output.html)
+        shutil.copyfile(csv, smk.output.csv)
+        notes["reports"] = written
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -87,11 +87,14 @@ def disagreement_flags(figures: pd.DataFrame, ratio: float) -> pd.DataFrame:
 
     Notes
     -----
-    ratio = max_m x_m / min_m x_m over the methods m with a finite figure.
+    ratio = max_m x_m / min_m x_m over the methods m with a finite figure,
+    leaving out stressed-calibration methods (``*_stressed``).
     When the smallest figure is zero or negative (a book expected to gain)
     the ratio is undefined; the figure is flagged if the methods disagree
     on the sign, since one says "loss" and another says "no loss".
     """
+    # stressed-calibration figures answer another question (a past crisis), so they are not compared
+    figures = figures[~figures["method"].astype(str).str.endswith("_stressed")]
     long = figures.melt(
         id_vars=["portfolio", "method", "confidence", "horizon_days"], value_vars=["var", "es"],
         var_name="metric", value_name="value",
