@@ -14,6 +14,12 @@ METHODS: dict[str, tuple[str, str]] = {
     "historical": ("tailtrace.estimators.historical", "estimate"),
     "historical_overlapping": ("tailtrace.estimators.historical", "estimate_overlapping"),
     "monte_carlo": ("tailtrace.estimators.monte_carlo", "estimate"),
+    "monte_carlo_t": ("tailtrace.estimators.monte_carlo", "estimate_student_t"),
+    "parametric_t": ("tailtrace.estimators.parametric_t", "estimate"),
+    "cornish_fisher": ("tailtrace.estimators.cornish_fisher", "estimate"),
+    "ewma_normal": ("tailtrace.estimators.ewma", "estimate"),
+    "age_weighted_historical": ("tailtrace.estimators.age_weighted", "estimate"),
+    "filtered_historical": ("tailtrace.estimators.filtered_historical", "estimate"),
 }
 
 
