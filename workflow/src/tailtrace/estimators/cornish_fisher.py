@@ -20,6 +20,7 @@ __all__ = [
     "factor_sensitivities",
     "is_monotone",
     "skew_kurtosis",
+    "skew_kurtosis_gradients",
     "estimate",
 ]
 
@@ -155,7 +156,7 @@ def skew_kurtosis(pnl: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """
     centred = pnl - pnl.mean(axis=-1, keepdims=True)
     m2 = np.mean(centred**2, axis=-1)
-    ok = m2 > 1e-28 * np.maximum(np.mean(pnl**2, axis=-1), 1e-300)
+    ok = _has_spread(m2, pnl)
     safe = np.where(ok, m2, 1.0)
     skew = np.where(ok, np.mean(centred**3, axis=-1) / safe**1.5, 0.0)
     kurt = np.where(ok, np.mean(centred**4, axis=-1) / safe**2 - 3.0, 0.0)
@@ -219,3 +220,49 @@ def estimate(
             "daily_sigma": sigma.tolist(),
         },
     )
+
+
+def skew_kurtosis_gradients(
+    simple: np.ndarray, values: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Skewness and excess kurtosis of linear books and their gradients in the holdings.
+
+    Parameters
+    ----------
+    simple : (T, N) daily simple returns
+    values : (P, N) holdings
+
+    Returns
+    -------
+    skew, kurt : (P,) arrays
+    dskew, dkurt : (P, N) arrays, ∂S/∂v_i and ∂K/∂v_i
+
+    Notes
+    -----
+    With centred returns X̃ and ``y = X̃v``, ``m_k = E[y^k]`` has gradient
+    ``k E[y^{k−1} X̃]``; then ``∂S = ∂m3/m2^{3/2} − (3/2) m3 ∂m2/m2^{5/2}`` and
+    ``∂K = ∂m4/m2² − 2 m4 ∂m2/m2³``. S and K are homogeneous of degree 0,
+    so ``Σ v_i ∂S/∂v_i = 0`` (likewise for K).
+
+    References
+    ----------
+    Boudt, Peterson & Croux, "Estimation and decomposition of downside risk
+    for portfolios with non-normal returns", Journal of Risk 11(2), 2008.
+    """
+    centred = simple - simple.mean(axis=0)
+    y = values @ centred.T  # (P, T)
+    T = centred.shape[0]
+    m2, m3, m4 = (np.mean(y**k, axis=1) for k in (2, 3, 4))
+    d2, d3, d4 = (k * (y ** (k - 1)) @ centred / T for k in (2, 3, 4))
+    raw = values @ simple.T
+    ok = _has_spread(m2, raw)[:, None]
+    safe = np.where(ok, m2[:, None], 1.0)
+    dskew = np.where(ok, d3 / safe**1.5 - 1.5 * m3[:, None] * d2 / safe**2.5, 0.0)
+    dkurt = np.where(ok, d4 / safe**2 - 2 * m4[:, None] * d2 / safe**3, 0.0)
+    skew, kurt = skew_kurtosis(raw)
+    return skew, kurt, dskew, dkurt
+
+
+def _has_spread(m2: np.ndarray, raw: np.ndarray) -> np.ndarray:
+    # a variance at rounding level of the raw P&L counts as none (S and K set to 0)
+    return m2 > 1e-28 * np.maximum(np.mean(raw**2, axis=-1), 1e-300)

@@ -38,11 +38,16 @@ def covariance_factor(returns: np.ndarray) -> np.ndarray:
     Built from the thin SVD of the demeaned returns, so it exists even when
     the covariance is singular (more instruments than observations) where a
     Cholesky factor would fail, and it costs O(r) per draw instead of O(N).
+    Each row's sign is fixed (largest entry positive): LAPACK's sign is
+    arbitrary and may flip when, say, a cash column of zeros is added, which
+    would change the simulated paths for the same seed.
     """
     centred = returns - returns.mean(axis=0)
     _, s, vt = np.linalg.svd(centred, full_matrices=False)
     keep = s > s[0] * 1e-12 if s.size and s[0] > 0 else np.zeros_like(s, dtype=bool)
-    return (s[keep, None] * vt[keep]) / np.sqrt(max(returns.shape[0] - 1, 1))
+    rows = vt[keep]
+    pivot = np.take_along_axis(rows, np.argmax(np.abs(rows), axis=1)[:, None], axis=1)
+    return (s[keep, None] * rows * np.where(pivot < 0, -1.0, 1.0)) / np.sqrt(max(returns.shape[0] - 1, 1))
 
 
 def mahalanobis_sq(returns: np.ndarray) -> tuple[np.ndarray, int]:
