@@ -65,9 +65,10 @@ def fit_t_dof(
     -------
     nu : (P,) array
     fitted : (P,) bool
-        False where the optimiser failed and the moment estimate
-        ``ν = 4 + 6/K`` (K excess kurtosis of the standardised data, ν at the
-        upper bound when K ≤ 0) was used; a ConvergenceWarning says so.
+        False where the optimiser failed and the kurtosis estimate was used:
+        ``ν = 4 + 2/(κ − 1)`` with Mardia's ratio ``κ = E[D⁴]/(d(d + 2))``,
+        which is ``4 + 6/K`` in one dimension (K the excess kurtosis), and
+        the upper bound when κ ≤ 1; a ConvergenceWarning says so.
 
     Notes
     -----
@@ -105,7 +106,7 @@ def fit_t_dof(
         bad = np.flatnonzero(~fitted)
         nu[bad] = _moment_dof(sq[bad], dim, low, high)
         warnings.warn(
-            f"Student-t dof fit failed for rows {bad.tolist()}; used the kurtosis estimate 4 + 6/K",
+            f"Student-t dof fit failed for rows {bad.tolist()}; used the kurtosis estimate",
             ConvergenceWarning,
             stacklevel=2,
         )
@@ -113,12 +114,12 @@ def fit_t_dof(
 
 
 def _moment_dof(sq: np.ndarray, dim: int, low: float, high: float) -> np.ndarray:
-    # univariate excess kurtosis E[x⁴]/E[x²]² − 3 of a t is 6/(ν − 4)
+    # Mardia kurtosis ratio κ = E[D⁴]/(d(d+2)E[D²/d]²) of a t is (ν − 2)/(ν − 4)
     m2 = np.nanmean(sq, axis=-1) / dim
     m4 = np.nanmean(np.square(sq), axis=-1) / (dim * (dim + 2))
     with np.errstate(divide="ignore", invalid="ignore"):
-        kurt = m4 / np.square(m2) - 3.0
-        nu = np.where(kurt > 0, 4.0 + 6.0 / kurt, high)
+        excess = m4 / np.square(m2) - 1.0
+        nu = np.where(excess > 0, 4.0 + 2.0 / excess, high)
     return np.clip(np.nan_to_num(nu, nan=high), low, high)
 
 
