@@ -47,6 +47,7 @@ COLUMNS = (
     "position_value",
     "marginal_var",
     "component_var",
+    "marginal_es",
     "component_es",
     "incremental_var",
     "incremental_es",
@@ -69,7 +70,8 @@ class RiskContributions:
 
     Attributes
     ----------
-    marginal_var : ∂VaR/∂v_i (per unit of base currency held)
+    marginal_var, marginal_es : ∂VaR/∂v_i and ∂ES/∂v_i (per unit of base
+        currency held)
     component_var, component_es : Euler allocations ``v_i ∂VaR/∂v_i``
         (and the same for ES); they sum over instruments to the portfolio
         figure (see ``allocation_gap``).
@@ -93,6 +95,7 @@ class RiskContributions:
     es: np.ndarray
     marginal_var: np.ndarray
     component_var: np.ndarray
+    marginal_es: np.ndarray
     component_es: np.ndarray
     incremental_var: np.ndarray
     incremental_es: np.ndarray
@@ -126,6 +129,7 @@ class RiskContributions:
             "position_value": pa.array(self.position_value[p, n]),
             "marginal_var": pa.array(per_position(self.marginal_var)),
             "component_var": pa.array(per_position(self.component_var)),
+            "marginal_es": pa.array(per_position(self.marginal_es)),
             "component_es": pa.array(per_position(self.component_es)),
             "incremental_var": pa.array(per_position(self.incremental_var)),
             "incremental_es": pa.array(per_position(self.incremental_es)),
@@ -187,11 +191,13 @@ def risk_contributions(
     Notes
     -----
     Euler allocation: VaR is homogeneous of degree one in the holdings v, so
-    ``VaR = Σ v_i ∂VaR/∂v_i``. For normal, Student-t (ν held fixed) and EWMA
+    ``VaR = Σ v_i ∂VaR/∂v_i``. For normal, Student-t and EWMA
     figures ``VaR = σ√h q − μh`` with ``σ² = vᵀΣv``, hence
     ``∂VaR/∂v = (Σv/σ²)(VaR + μh) − m h`` exactly (m the mean vector when
-    the mean is included). Cornish–Fisher adds the gradients of skewness and
-    kurtosis (:func:`cornish_fisher.skew_kurtosis_gradients`). For the
+    the mean is included); for the Student-t the fitted ν moves with the
+    book, adding ``σ√h (∂q̃/∂ν)(∂ν/∂v)`` (:func:`parametric_t.dof_gradient`).
+    Cornish–Fisher adds the gradients of skewness and kurtosis
+    (:func:`cornish_fisher.skew_kurtosis_gradients`). For the
     historical and simulation methods see :func:`kernel_allocation`; their
     ES components are exact, ES being the (weighted) mean of the tail
     scenarios. Stand-alone and incremental figures are full recomputations.
@@ -260,6 +266,7 @@ def risk_contributions(
         es=es,
         marginal_var=marginal_var,
         component_var=component_var,
+        marginal_es=marginal_es,
         component_es=component_es,
         incremental_var=incremental_var,
         incremental_es=incremental_es,
@@ -405,7 +412,31 @@ def _analytic_marginals(
     unit = np.divide(cov_v, variance[:, None], out=np.zeros_like(cov_v), where=variance[:, None] > 0)
     marginal_var = unit[:, None, None, :] * (var + drift)[..., None] - mean_h
     marginal_es = unit[:, None, None, :] * (es + drift)[..., None] - mean_h
+    if method == "parametric_t":
+        dvar, des = _dof_terms(sample, simple, sigma, confidences, h, options)
+        marginal_var += dvar
+        marginal_es += des
     return marginal_var, marginal_es
+
+
+def _dof_terms(
+    sample: RiskSample,
+    simple: np.ndarray,
+    sigma: np.ndarray,
+    confidences: Sequence[float],
+    h: np.ndarray,
+    options: Mapping[str, Any],
+) -> tuple[np.ndarray, np.ndarray]:
+    # ν depends on the book's direction: σ√h (∂q̃/∂ν)(∂ν/∂v); zero where ν sits on a bound or was not fitted
+    from .estimators import parametric_t as pt
+
+    bounds = tuple(float(b) for b in options.get("dof_bounds", pt.DOF_BOUNDS))
+    nu, fitted, degenerate = pt.portfolio_dof(sample.pnl, bounds)
+    interior = fitted & ~degenerate & (nu > bounds[0]) & (nu < bounds[1])
+    dnu = np.where(interior[:, None], pt.dof_gradient(simple, sample.values, nu), 0.0)  # (P, N)
+    slope_var, slope_es = pt.t_factor_slopes(nu, confidences)  # (P, C)
+    scale = sigma[:, None, None, None] * np.sqrt(h)[None, None, :, None] * dnu[:, None, None, :]
+    return slope_var[:, :, None, None] * scale, slope_es[:, :, None, None] * scale
 
 
 def _cornish_fisher_marginals(

@@ -6,14 +6,24 @@ import warnings
 from typing import Any, Mapping, Sequence
 
 import numpy as np
-from scipy.special import gammaln, stdtrit
+from scipy.special import gammaln, polygamma, stdtrit
 
 from ..errors import ConvergenceWarning
 from .base import RiskEstimate, RiskSample
 from .parametric import portfolio_moments
 from .scaling import sqrt_time_labels
 
-__all__ = ["DOF_BOUNDS", "t_loglik", "fit_t_dof", "t_factors", "standardised_pnl", "estimate"]
+__all__ = [
+    "DOF_BOUNDS",
+    "t_loglik",
+    "fit_t_dof",
+    "portfolio_dof",
+    "t_factors",
+    "t_factor_slopes",
+    "dof_gradient",
+    "standardised_pnl",
+    "estimate",
+]
 
 DOF_BOUNDS = (2.1, 200.0)
 _GRID = 48
@@ -148,6 +158,76 @@ def t_factors(nu: np.ndarray, confidences: Sequence[float]) -> tuple[np.ndarray,
     return q * unit, es * unit
 
 
+def portfolio_dof(
+    pnl: np.ndarray, bounds: Sequence[float] = DOF_BOUNDS
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """ν fitted to each row's standardised P&L (see :func:`fit_t_dof`).
+
+    Returns
+    -------
+    nu : (P,) array (the upper bound for constant rows)
+    fitted : (P,) bool, False where the kurtosis fallback was used
+    degenerate : (P,) bool, True where the P&L is constant
+    """
+    z, degenerate = standardised_pnl(pnl)
+    nu = np.full(len(z), float(bounds[1]))
+    fitted = np.ones(len(z), dtype=bool)
+    if (~degenerate).any():
+        nu[~degenerate], fitted[~degenerate] = fit_t_dof(np.square(z[~degenerate]), 1, bounds)
+    return nu, fitted, degenerate
+
+
+def t_factor_slopes(nu: np.ndarray, confidences: Sequence[float]) -> tuple[np.ndarray, np.ndarray]:
+    """∂/∂ν of the unit-variance factors of :func:`t_factors`, ``(P, C)`` (central differences)."""
+    nu = np.asarray(nu, dtype=float)
+    step = 1e-5 * nu
+    up_var, up_es = t_factors(nu + step, confidences)
+    dn_var, dn_es = t_factors(nu - step, confidences)
+    return (up_var - dn_var) / (2 * step[:, None]), (up_es - dn_es) / (2 * step[:, None])
+
+
+def dof_gradient(simple: np.ndarray, values: np.ndarray, nu: np.ndarray) -> np.ndarray:
+    """Gradient ∂ν/∂v of the fitted dof of linear books, by implicit differentiation.
+
+    Parameters
+    ----------
+    simple : (T, N) daily simple returns
+    values : (P, N) holdings
+    nu : (P,) interior maxima of the profile likelihood for these books
+
+    Returns
+    -------
+    (P, N) array; rows with constant P&L are zero.
+
+    Notes
+    -----
+    At the optimum ``∂ℓ/∂ν = 0``, so ``∂ν/∂v = −(∂²ℓ/∂ν∂v)/(∂²ℓ/∂ν²)``. With
+    ``z_t² = y_t²/s²``, ``y = X̃v``, u = ν − 2 and ℓ the mean log-likelihood
+    of :func:`t_loglik`: ``∂²ℓ/∂ν∂z_t² = −(z_t² − 3)/(2T(u + z_t²)²)`` and
+    ``∂²ℓ/∂ν² = ¼ψ′((ν+1)/2) − ¼ψ′(ν/2) + 1/(2u²) − A′ − ((ν+1)/2)A″`` where
+    ``A = mean log(1 + z²/u)``. ν is homogeneous of degree 0 in v, so
+    ``Σ v_i ∂ν/∂v_i = 0``.
+    """
+    centred = simple - simple.mean(axis=0)
+    y = values @ centred.T  # (P, T)
+    T = y.shape[1]
+    s2 = np.square(y).sum(axis=1) / (T - 1)
+    ok = s2 > 0
+    s2 = np.where(ok, s2, 1.0)[:, None]
+    z2 = np.square(y) / s2
+    u = (np.asarray(nu, dtype=float) - 2.0)[:, None]
+    mixed = -(z2 - 3.0) / (2 * T * np.square(u + z2))  # ∂²ℓ/∂ν∂z_t²
+    ds2 = 2 * (y @ centred) / (T - 1)  # ∂s²/∂v, (P, N)
+    cross = 2 * (mixed * y) @ centred / s2 - (mixed * np.square(y)).sum(axis=1, keepdims=True) * ds2 / np.square(s2)
+    nu_c = u + 2.0
+    a1 = np.mean(1 / (u + z2), axis=1, keepdims=True) - 1 / u
+    a2 = -np.mean(1 / np.square(u + z2), axis=1, keepdims=True) + 1 / np.square(u)
+    curvature = (
+        0.25 * polygamma(1, (nu_c + 1) / 2) - 0.25 * polygamma(1, nu_c / 2) + 0.5 / np.square(u) - a1 - (nu_c + 1) / 2 * a2
+    )
+    return np.where(ok[:, None], -cross / curvature, 0.0)
+
+
 def standardised_pnl(pnl: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """P&L minus its mean over its st. dev. (ddof 1); rows with zero spread stay zero.
 
@@ -199,11 +279,7 @@ def estimate(
     include_mean = bool(options.get("include_mean", False))
     bounds = tuple(float(b) for b in options.get("dof_bounds", DOF_BOUNDS))
     mu, sigma, _ = portfolio_moments(sample, include_mean)
-    z, degenerate = standardised_pnl(sample.pnl)
-    nu = np.full(len(z), bounds[1])
-    fitted = np.ones(len(z), dtype=bool)
-    if (~degenerate).any():
-        nu[~degenerate], fitted[~degenerate] = fit_t_dof(np.square(z[~degenerate]), 1, bounds)
+    nu, fitted, degenerate = portfolio_dof(sample.pnl, bounds)
     f_var, f_es = t_factors(nu, confidences)
     h = np.asarray(horizons, dtype=float)
     sig = sigma[:, None, None] * np.sqrt(h)
