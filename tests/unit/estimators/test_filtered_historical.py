@@ -111,3 +111,20 @@ def test_history_must_end_with_the_window(two_regime_sample):
     broken = dataclasses.replace(two_regime_sample, history=two_regime_sample.history[:-1])
     with pytest.raises(ValueError, match="history to end with the window"):
         filtered_historical.estimate(broken, [0.99], [1], options={})
+
+
+def test_late_listed_instrument_is_fitted_on_its_own_history(two_regime_sample):
+    history = two_regime_sample.history.copy()
+    history[:200, 1] = np.nan  # listed 200 days after the first instrument
+    sample = _sample(history, two_regime_sample.values)
+    est = filtered_historical.estimate(sample, [0.99], [1], options={})
+    fit = garch.fit_volatility(history[200:, 1])
+    assert est.diagnostics["volatility"]["I2"]["sigma_next"] == pytest.approx(fit.sigma_next, rel=1e-12)
+    history[-3, 0] = np.nan
+    with pytest.raises(ValueError, match="instrument I1: history has missing returns inside the estimation window"):
+        filtered_historical.filtered_returns(_sample(history, two_regime_sample.values), {})
+
+
+def test_bad_mean_option_is_rejected(two_regime_sample):
+    with pytest.raises(ValueError, match="GARCH mean must be"):
+        filtered_historical.estimate(two_regime_sample, [0.99], [1], options={"garch_mean": "ar1"})

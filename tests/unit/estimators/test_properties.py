@@ -1,5 +1,7 @@
 """Properties every method must have (hypothesis, seeded numpy data)."""
 
+import json
+
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
@@ -65,3 +67,13 @@ def test_var_es_properties(method, m):
     )
     assert with_cash.var == pytest.approx(base.var, rel=1e-6, abs=1e-9 * size)
     assert with_cash.es == pytest.approx(base.es, rel=1e-6, abs=1e-9 * size)
+
+
+@pytest.mark.filterwarnings("ignore::tailtrace.errors.ModelWarning")
+@pytest.mark.parametrize("method", sorted(METHODS))
+def test_diagnostics_are_strict_json(method):
+    m = {"seed": 1, "window": 280, "instruments": 3, "portfolios": 2, "fat": True}
+    history, values = _market(m)
+    est = _run(method, history, values, m["window"])
+    json.dumps(est.diagnostics, allow_nan=False)
+    assert est.var.shape == (2, len(CONF), len(HORIZONS)) and np.all(np.isfinite(est.var))

@@ -23,7 +23,8 @@ def filtered_returns(sample: RiskSample, options: Mapping[str, Any]) -> tuple[np
     Parameters
     ----------
     sample : RiskSample
-        ``history`` must end with ``returns``; volatility is fitted on it.
+        ``history`` must end with ``returns``; volatility is fitted on each
+        instrument's history after its last missing (NaN) value.
     options : mapping
         ``garch_mean`` ("zero" or "constant", default "zero"), ``min_obs``
         (default 250), ``fallback_decay`` (default 0.94).
@@ -41,19 +42,31 @@ def filtered_returns(sample: RiskSample, options: Mapping[str, Any]) -> tuple[np
     """
     history = np.asarray(sample.history, dtype=float)
     T = sample.n_obs
-    if history.shape[0] < T or not np.array_equal(history[-T:], sample.returns):
+    if history.shape[0] < T or not np.array_equal(history[-T:], sample.returns, equal_nan=True):
         raise ValueError("filtered_historical needs sample.history to end with the window returns")
     mean = str(options.get("garch_mean", "zero"))
     min_obs = int(options.get("min_obs", DEFAULT_MIN_OBS))
     decay = float(options.get("fallback_decay", DEFAULT_FALLBACK_DECAY))
     # one optimisation per instrument: the fits cannot share an array operation
-    fits = [fit_volatility(history[:, i], mean=mean, min_obs=min_obs, fallback_decay=decay) for i in range(history.shape[1])]
+    fits = [
+        fit_volatility(_trailing_finite(history[:, i], T, name), mean=mean, min_obs=min_obs, fallback_decay=decay)
+        for i, name in enumerate(sample.instruments)
+    ]
     sigma = np.stack([f.sigma[-T:] for f in fits], axis=1)
     sigma_next = np.array([f.sigma_next for f in fits])
     centre = np.array([f.mean for f in fits])
     usable = (sigma > 0) & (sigma_next > 0)
     factor = np.divide(sigma_next, sigma, out=np.ones_like(sigma), where=usable)
     return centre + (sample.returns - centre) * factor, fits
+
+
+def _trailing_finite(series: np.ndarray, window: int, name: str) -> np.ndarray:
+    # instruments listed later than others carry NaN before their first return: fit on what exists
+    gaps = np.flatnonzero(~np.isfinite(series))
+    start = int(gaps[-1]) + 1 if gaps.size else 0
+    if series.size - start < window:
+        raise ValueError(f"instrument {name}: history has missing returns inside the estimation window")
+    return series[start:]
 
 
 def estimate(

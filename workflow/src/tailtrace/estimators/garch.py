@@ -143,6 +143,8 @@ def fit_volatility(
     sample variance of ε (:func:`ewma.ewma_variance_path`). A series with no
     variation gets ``model = 'constant'`` and zero volatility.
     """
+    if mean not in ("zero", "constant"):
+        raise ValueError(f"GARCH mean must be 'zero' or 'constant', got {mean!r}")
     x = np.asarray(x, dtype=float)
     centre = float(x.mean()) if mean == "constant" else 0.0
     resid = x - centre

@@ -46,7 +46,7 @@ def linear_sample(
     if values.shape[1] != N:
         raise ValueError(f"values have {values.shape[1]} instruments, returns {N}")
     history = returns if history is None else np.asarray(history, dtype=float)
-    if history.shape[0] < T or not np.array_equal(history[-T:], returns):
+    if history.shape[0] < T or not np.array_equal(history[-T:], returns, equal_nan=True):
         raise ValueError("history must end with the window returns")
     if dates is None:
         dates = np.busday_offset(np.datetime64("2024-12-31"), np.arange(-T + 1, 1), roll="backward")
