@@ -18,7 +18,7 @@ import numpy as np
 
 from .estimators.base import RiskEstimate, RiskSample, as_generator, linear_revalue
 from .estimators.registry import get_estimator
-from .estimators.tail import tail_count
+from .estimators.tail import empirical_var_es, tail_count
 
 if TYPE_CHECKING:
     import pyarrow as pa
@@ -35,6 +35,7 @@ __all__ = [
 ]
 
 DEFAULT_BANDWIDTH = 1.06  # Silverman's rule-of-thumb constant
+Scenarios = list[tuple[np.ndarray, "np.ndarray | None", float]]  # (simple returns, weights, scale) per horizon
 _CELLS_PER_CALL = 4_000_000  # books × scenarios evaluated per estimator call
 
 COLUMNS = (
@@ -226,9 +227,12 @@ def risk_contributions(
     names = list(sample.portfolios)
     names += [f"{p}: {i} alone" for p in sample.portfolios for i in sample.instruments]
     names += [f"{p}: without {i}" for p in sample.portfolios for i in sample.instruments]
-    var_all, es_all = _estimate_in_chunks(
-        estimator, sample, books, names, confidences, horizons, options, int_seed, _scenario_count(method, sample, options)
-    )
+    if method in ANALYTIC_METHODS:
+        var_all, es_all = _estimate_in_chunks(estimator, sample, books, names, confidences, horizons, options, int_seed)
+    else:
+        # the method's own scenarios, built once, serve every derived book (one GARCH fit, one simulation)
+        scenarios = KERNEL_METHODS[method](sample, horizons, options, int_seed)
+        var_all, es_all = _scenario_figures(books, scenarios, confidences)
     var, es = var_all[:P], es_all[:P]
 
     def per_position(block: np.ndarray) -> np.ndarray:  # (P·N, C, H) -> (P, C, H, N)
@@ -243,7 +247,6 @@ def risk_contributions(
         marginal_var, marginal_es = _analytic_marginals(method, sample, simple, var, es, confidences, horizons, options)
         allocation = "analytic"
     else:
-        scenarios = KERNEL_METHODS[method](sample, horizons, options, int_seed)
         marginal_var, marginal_es = kernel_allocation(values, scenarios, var, confidences, bandwidth=bandwidth)
         allocation = "kernel"
     component_var = values[:, None, None, :] * marginal_var
@@ -361,10 +364,25 @@ def _require_linear(sample: RiskSample, simple: np.ndarray) -> None:
         raise ValueError("risk_contributions needs a linear book: sample.pnl must equal values @ expm1(returns).T")
 
 
-def _scenario_count(method: str, sample: RiskSample, options: Mapping[str, Any]) -> int:
-    if method.startswith("monte_carlo"):
-        return int(options.get("paths", 10_000))
-    return sample.n_obs
+def _scenario_figures(
+    books: np.ndarray, scenarios: Scenarios, confidences: Sequence[float]
+) -> tuple[np.ndarray, np.ndarray]:
+    # VaR and ES of linear books read off fixed scenarios, as the historical and simulation estimators do
+    from .estimators.weighted_tail import weighted_var_es
+
+    var = np.empty((len(books), len(confidences), len(scenarios)))
+    es = np.empty_like(var)
+    for j, (simple, weights, scale) in enumerate(scenarios):  # a handful of horizons
+        rows = max(1, _CELLS_PER_CALL // simple.shape[0])
+        for start in range(0, len(books), rows):  # chunks bound memory; each is vectorised
+            losses = -(books[start : start + rows] @ simple.T)
+            if weights is None:
+                v, e = empirical_var_es(losses, confidences)
+            else:
+                v, e = weighted_var_es(losses, weights, confidences)
+            var[start : start + rows, :, j] = v * scale
+            es[start : start + rows, :, j] = e * scale
+    return var, es
 
 
 def _estimate_in_chunks(
@@ -376,10 +394,8 @@ def _estimate_in_chunks(
     horizons: Sequence[int],
     options: Mapping[str, Any],
     seed: int,
-    scenarios: int,
 ) -> tuple[np.ndarray, np.ndarray]:
-    # the same int seed in every call: simulation methods reuse one set of paths
-    rows = max(1, _CELLS_PER_CALL // max(scenarios, 1))
+    rows = max(1, _CELLS_PER_CALL // max(sample.n_obs, 1))
     parts = []
     for start in range(0, len(books), rows):  # chunks bound memory; each call is vectorised
         stack = stacked_books(sample, books[start : start + rows], names[start : start + rows])
@@ -481,9 +497,6 @@ def _covariance_ewma(sample: RiskSample, options: Mapping[str, Any]) -> np.ndarr
     from .estimators.ewma import DEFAULT_DECAY, ewma_covariance
 
     return ewma_covariance(np.expm1(sample.returns), float(options.get("decay", DEFAULT_DECAY)))
-
-
-Scenarios = list[tuple[np.ndarray, "np.ndarray | None", float]]
 
 
 def _scenarios_historical(sample: RiskSample, horizons: Sequence[int], options: Mapping[str, Any], seed: int) -> Scenarios:
