@@ -112,7 +112,7 @@ def test_kernel_components_sum_to_var_and_tail_components_to_es(fat_book, method
     assert res.allocation == "kernel"
     assert res.component_var.sum(axis=-1) == pytest.approx(res.var, rel=1e-12)
     assert raw.component_var.sum(axis=-1) == pytest.approx(raw.var * (1 + raw.allocation_gap), rel=1e-12)
-    # raw gap ≈ −(b/σ_L)², 8 % for 600 equal weights, 18 % for λ = 0.98 (n_eff ≈ 100): see the normal test below
+    # raw gap ≈ −(b/σ_L)²: 8 % for 600 equal weights, 18 % for λ = 0.98 (n_eff ≈ 100); see the normal test
     assert np.abs(raw.allocation_gap).max() < 0.25
     # ES is the mean of the tail scenarios: its Euler split is exact
     assert res.component_es.sum(axis=-1) == pytest.approx(res.es, rel=1e-12)

@@ -8,7 +8,9 @@ import pytest
 from tailtrace.estimators.samples import linear_sample
 
 
-def correlated_returns(rng: np.random.Generator, n: int, vols: np.ndarray, corr: float, dof: float | None = None) -> np.ndarray:
+def correlated_returns(
+    rng: np.random.Generator, n: int, vols: np.ndarray, corr: float, dof: float | None = None
+) -> np.ndarray:
     """Daily log returns with equal pairwise correlation; Student-t margins when ``dof`` is set."""
     k = len(vols)
     chol = np.linalg.cholesky(np.full((k, k), corr) + (1 - corr) * np.eye(k))

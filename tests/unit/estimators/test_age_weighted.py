@@ -88,7 +88,8 @@ def test_band_equals_order_statistic_band_for_equal_weights(normal_sample):
 
 def test_estimate_reports_band_and_effective_size(normal_sample):
     est = age_weighted.estimate(normal_sample, [0.95, 0.99], [1, 10], options={"decay": 0.99})
-    assert est.diagnostics["effective_obs"] == pytest.approx((1 + 0.99) / (1 - 0.99) * (1 - 0.99**500) / (1 + 0.99**500))
+    n_eff = (1 + 0.99) / (1 - 0.99) * (1 - 0.99**500) / (1 + 0.99**500)  # 1/Σw² summed in closed form
+    assert est.diagnostics["effective_obs"] == pytest.approx(n_eff)
     assert np.all(est.var_lo[:, 0] <= est.var[:, 0])
     assert np.all(est.var[:, 0] <= est.var_hi[:, 0])
     assert est.var_lo[:, :, 1] == pytest.approx(est.var_lo[:, :, 0] * np.sqrt(10), nan_ok=True)

@@ -24,7 +24,8 @@ def test_garch_matches_a_direct_arch_fit(sp500_log_returns, mean):
 
     x = sp500_log_returns[-2500:]
     fit = garch.fit_volatility(x, mean=mean)
-    direct = arch_model(100 * x, mean="Zero" if mean == "zero" else "Constant", vol="GARCH", p=1, q=1, dist="normal").fit(disp="off")
+    spec = "Zero" if mean == "zero" else "Constant"
+    direct = arch_model(100 * x, mean=spec, vol="GARCH", p=1, q=1, dist="normal").fit(disp="off")
     assert fit.model == "garch" and fit.reason is None
     p = direct.params
     assert fit.params["omega"] == pytest.approx(p["omega"], rel=1e-4)

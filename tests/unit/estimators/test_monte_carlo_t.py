@@ -16,7 +16,8 @@ def t_sample(make_returns):
 
 def test_normal_is_the_default_and_unchanged(normal_sample):
     base = monte_carlo.estimate(normal_sample, [0.99], [1, 10], options={"paths": 2000}, seed=4)
-    explicit = monte_carlo.estimate(normal_sample, [0.99], [1, 10], options={"paths": 2000, "distribution": "normal"}, seed=4)
+    options = {"paths": 2000, "distribution": "normal"}
+    explicit = monte_carlo.estimate(normal_sample, [0.99], [1, 10], options=options, seed=4)
     assert np.array_equal(base.var, explicit.var) and np.array_equal(base.es_se, explicit.es_se)
     assert base.diagnostics["distribution"] == "normal" and "dof" not in base.diagnostics
 
@@ -50,7 +51,8 @@ def test_simulated_t_steps_keep_the_covariance_and_have_fat_tails(t_sample):
 def test_one_day_t_var_agrees_with_the_closed_form(t_sample):
     # single-instrument book, 1 day: the simulated VaR and ES should match σ·q̃_ν within sampling error
     sample = linear_sample(t_sample.returns, np.array([[1e6, 0.0, 0.0]]))
-    est = monte_carlo.estimate(sample, [0.975, 0.99], [1], options={"paths": 100_000, "distribution": "t", "dof": 5.0}, seed=9)
+    options = {"paths": 100_000, "distribution": "t", "dof": 5.0}
+    est = monte_carlo.estimate(sample, [0.975, 0.99], [1], options=options, seed=9)
     sigma = 1e6 * np.exp(t_sample.returns[:, 0]).std(ddof=1)  # about the simple-return st. dev.
     f_var, f_es = t_factors(np.array([5.0]), [0.975, 0.99])
     assert est.var[0, :, 0] == pytest.approx(sigma * f_var[0], rel=0.03)
@@ -61,7 +63,8 @@ def test_one_day_t_var_agrees_with_the_closed_form(t_sample):
 def test_same_seed_same_figures_and_registry_variant(t_sample):
     from tailtrace.estimators.registry import get_estimator
 
-    a = monte_carlo.estimate(t_sample, [0.99], [1, 5], options={"paths": 3000, "distribution": "t"}, seed=np.random.default_rng(5))
+    options = {"paths": 3000, "distribution": "t"}
+    a = monte_carlo.estimate(t_sample, [0.99], [1, 5], options=options, seed=np.random.default_rng(5))
     b = get_estimator("monte_carlo_t")(t_sample, [0.99], [1, 5], options={"paths": 3000}, seed=np.random.default_rng(5))
     assert np.array_equal(a.var, b.var) and np.array_equal(a.es, b.es)
     assert a.scaling == ("none", "simulated") and a.var_se is not None

@@ -61,7 +61,9 @@ def test_dof_fit_matches_direct_scipy_likelihood(true_nu):
     x = rng.standard_t(true_nu, 3000)
     z = (x - x.mean()) / x.std(ddof=1)
     nu, fitted = fit_t_dof(np.square(z)[None, :])
-    ref = scipy.optimize.minimize_scalar(_scipy_negloglik, bounds=(2.1, 200), args=(z,), method="bounded", options={"xatol": 1e-9})
+    ref = scipy.optimize.minimize_scalar(
+        _scipy_negloglik, bounds=(2.1, 200), args=(z,), method="bounded", options={"xatol": 1e-9}
+    )
     assert fitted[0]
     assert nu[0] == pytest.approx(ref.x, rel=1e-5)
     assert nu[0] == pytest.approx(true_nu, rel=0.35)

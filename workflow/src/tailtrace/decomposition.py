@@ -36,6 +36,7 @@ __all__ = [
 
 DEFAULT_BANDWIDTH = 1.06  # Silverman's rule-of-thumb constant
 Scenarios = list[tuple[np.ndarray, "np.ndarray | None", float]]  # (simple returns, weights, scale) per horizon
+Options = Mapping[str, Any]
 _CELLS_PER_CALL = 4_000_000  # books × scenarios evaluated per estimator call
 
 COLUMNS = (
@@ -443,7 +444,7 @@ def _dof_terms(
     h: np.ndarray,
     options: Mapping[str, Any],
 ) -> tuple[np.ndarray, np.ndarray]:
-    # ν depends on the book's direction: σ√h (∂q̃/∂ν)(∂ν/∂v); zero where ν sits on a bound or was not fitted
+    # ν moves with the book's direction: σ√h (∂q̃/∂ν)(∂ν/∂v); zero where ν is on a bound or not fitted
     from .estimators import parametric_t as pt
 
     bounds = tuple(float(b) for b in options.get("dof_bounds", pt.DOF_BOUNDS))
@@ -499,18 +500,18 @@ def _covariance_ewma(sample: RiskSample, options: Mapping[str, Any]) -> np.ndarr
     return ewma_covariance(np.expm1(sample.returns), float(options.get("decay", DEFAULT_DECAY)))
 
 
-def _scenarios_historical(sample: RiskSample, horizons: Sequence[int], options: Mapping[str, Any], seed: int) -> Scenarios:
+def _scenarios_historical(sample: RiskSample, horizons: Sequence[int], options: Options, seed: int) -> Scenarios:
     simple = np.expm1(sample.returns)
     return [(simple, None, float(np.sqrt(h))) for h in horizons]
 
 
-def _scenarios_overlapping(sample: RiskSample, horizons: Sequence[int], options: Mapping[str, Any], seed: int) -> Scenarios:
+def _scenarios_overlapping(sample: RiskSample, horizons: Sequence[int], options: Options, seed: int) -> Scenarios:
     from .estimators.historical import overlapping_log_returns
 
     return [(np.expm1(overlapping_log_returns(sample.returns, int(h))), None, 1.0) for h in horizons]
 
 
-def _scenarios_age_weighted(sample: RiskSample, horizons: Sequence[int], options: Mapping[str, Any], seed: int) -> Scenarios:
+def _scenarios_age_weighted(sample: RiskSample, horizons: Sequence[int], options: Options, seed: int) -> Scenarios:
     from .estimators.age_weighted import DEFAULT_DECAY, age_weights
 
     weights = age_weights(sample.n_obs, float(options.get("decay", DEFAULT_DECAY)))
@@ -518,7 +519,7 @@ def _scenarios_age_weighted(sample: RiskSample, horizons: Sequence[int], options
     return [(simple, weights, float(np.sqrt(h))) for h in horizons]
 
 
-def _scenarios_filtered(sample: RiskSample, horizons: Sequence[int], options: Mapping[str, Any], seed: int) -> Scenarios:
+def _scenarios_filtered(sample: RiskSample, horizons: Sequence[int], options: Options, seed: int) -> Scenarios:
     from .estimators.filtered_historical import filtered_returns
 
     simple = np.expm1(filtered_returns(sample, options)[0])
@@ -535,7 +536,7 @@ def _scenarios_monte_carlo(
     return [(np.expm1(shocks[int(h)]), None, 1.0) for h in horizons]
 
 
-def _scenarios_monte_carlo_t(sample: RiskSample, horizons: Sequence[int], options: Mapping[str, Any], seed: int) -> Scenarios:
+def _scenarios_monte_carlo_t(sample: RiskSample, horizons: Sequence[int], options: Options, seed: int) -> Scenarios:
     return _scenarios_monte_carlo(sample, horizons, options, seed, distribution="t")
 
 
@@ -548,7 +549,7 @@ ANALYTIC_METHODS: dict[str, Callable[[RiskSample, Mapping[str, Any]], np.ndarray
 }
 
 # method -> the scenarios its figure is read from (kernel allocation)
-KERNEL_METHODS: dict[str, Callable[[RiskSample, Sequence[int], Mapping[str, Any], int], Scenarios]] = {
+KERNEL_METHODS: dict[str, Callable[[RiskSample, Sequence[int], Options, int], Scenarios]] = {
     "historical": _scenarios_historical,
     "historical_overlapping": _scenarios_overlapping,
     "age_weighted_historical": _scenarios_age_weighted,

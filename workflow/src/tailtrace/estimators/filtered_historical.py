@@ -108,7 +108,8 @@ def estimate(
     rescaled, fits = filtered_returns(sample, options)
     failed = [name for name, f in zip(sample.instruments, fits) if f.reason and f.reason.startswith("fit_failed")]
     if failed:
-        warnings.warn(f"GARCH(1,1) fit failed for {failed}; EWMA volatility used instead", ConvergenceWarning, stacklevel=2)
+        message = f"GARCH(1,1) fit failed for {failed}; EWMA volatility used instead"
+        warnings.warn(message, ConvergenceWarning, stacklevel=2)
     losses = -sample.revalue(rescaled, 1)
     var1, es1 = empirical_var_es(losses, confidences)
     lo, hi = sqrt_time_band(losses, confidences, horizons, level)

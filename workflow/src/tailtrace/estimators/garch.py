@@ -81,7 +81,8 @@ def fit_garch(x: np.ndarray, mean: str = "zero") -> VolatilityFit:
     if mean not in ("zero", "constant"):
         raise ValueError(f"GARCH mean must be 'zero' or 'constant', got {mean!r}")
     y = _PERCENT * np.asarray(x, dtype=float)
-    model = arch_model(y, mean="Zero" if mean == "zero" else "Constant", vol="GARCH", p=1, q=1, dist="normal", rescale=True)
+    spec = "Zero" if mean == "zero" else "Constant"
+    model = arch_model(y, mean=spec, vol="GARCH", p=1, q=1, dist="normal", rescale=True)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         res = model.fit(disp="off", show_warning=True)

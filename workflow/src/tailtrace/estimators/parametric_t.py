@@ -222,9 +222,8 @@ def dof_gradient(simple: np.ndarray, values: np.ndarray, nu: np.ndarray) -> np.n
     nu_c = u + 2.0
     a1 = np.mean(1 / (u + z2), axis=1, keepdims=True) - 1 / u
     a2 = -np.mean(1 / np.square(u + z2), axis=1, keepdims=True) + 1 / np.square(u)
-    curvature = (
-        0.25 * polygamma(1, (nu_c + 1) / 2) - 0.25 * polygamma(1, nu_c / 2) + 0.5 / np.square(u) - a1 - (nu_c + 1) / 2 * a2
-    )
+    trigamma = 0.25 * (polygamma(1, (nu_c + 1) / 2) - polygamma(1, nu_c / 2))
+    curvature = trigamma + 0.5 / np.square(u) - a1 - (nu_c + 1) / 2 * a2
     return np.where(ok[:, None], -cross / curvature, 0.0)
 
 
