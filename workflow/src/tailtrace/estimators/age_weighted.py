@@ -8,7 +8,7 @@ import numpy as np
 
 from .bands import DEFAULT_BAND_LEVEL, sqrt_time_band
 from .base import RiskEstimate, RiskSample
-from .scaling import scale_sqrt_time, sqrt_time_labels
+from .scaling import sqrt_time_estimate
 from .weighted_tail import effective_size, weighted_var_es
 
 __all__ = ["DEFAULT_DECAY", "age_weights", "estimate"]
@@ -84,14 +84,13 @@ def estimate(
     weights = age_weights(sample.n_obs, decay)
     losses = -sample.pnl
     var1, es1 = weighted_var_es(losses, weights, confidences)
-    lo, hi = sqrt_time_band(losses, confidences, horizons, level, weights=weights)
-    return RiskEstimate(
-        var=scale_sqrt_time(var1, horizons),
-        es=scale_sqrt_time(es1, horizons),
-        scaling=sqrt_time_labels(horizons),
-        n_obs=np.full(len(horizons), sample.n_obs),
-        var_lo=lo,
-        var_hi=hi,
+    band = sqrt_time_band(losses, confidences, horizons, level, weights=weights)
+    return sqrt_time_estimate(
+        var1,
+        es1,
+        horizons,
+        sample.n_obs,
+        band=band,
         diagnostics={
             "decay": decay,
             "effective_obs": float(effective_size(weights)),

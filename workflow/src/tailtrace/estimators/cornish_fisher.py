@@ -11,7 +11,7 @@ from scipy.special import ndtri
 from ..errors import ModelWarning
 from .base import RiskEstimate, RiskSample
 from .parametric import portfolio_moments
-from .scaling import sqrt_time_labels
+from .scaling import location_scale_var_es, sqrt_time_labels
 
 __all__ = [
     "DEFAULT_MONOTONE_TAIL",
@@ -202,13 +202,11 @@ def estimate(
             ModelWarning,
             stacklevel=2,
         )
-    f_var, f_es = cornish_fisher_factors(np.where(monotone, skew, 0.0), np.where(monotone, kurt, 0.0), confidences)
-    h = np.asarray(horizons, dtype=float)
-    sig = sigma[:, None, None] * np.sqrt(h)
-    drift = mu[:, None, None] * h
+    factors = cornish_fisher_factors(np.where(monotone, skew, 0.0), np.where(monotone, kurt, 0.0), confidences)
+    var, es = location_scale_var_es(mu, sigma, *factors, horizons)
     return RiskEstimate(
-        var=sig * f_var[:, :, None] - drift,
-        es=sig * f_es[:, :, None] - drift,
+        var=var,
+        es=es,
         scaling=sqrt_time_labels(horizons),
         n_obs=np.full(len(horizons), sample.n_obs),
         diagnostics={

@@ -11,7 +11,7 @@ from ..errors import ConvergenceWarning
 from .bands import DEFAULT_BAND_LEVEL, sqrt_time_band
 from .base import RiskEstimate, RiskSample
 from .garch import DEFAULT_FALLBACK_DECAY, DEFAULT_MIN_OBS, VolatilityFit, fit_volatility
-from .scaling import scale_sqrt_time, sqrt_time_labels
+from .scaling import sqrt_time_estimate
 from .tail import empirical_var_es, tail_count
 
 __all__ = ["filtered_returns", "estimate"]
@@ -112,14 +112,12 @@ def estimate(
         warnings.warn(message, ConvergenceWarning, stacklevel=2)
     losses = -sample.revalue(rescaled, 1)
     var1, es1 = empirical_var_es(losses, confidences)
-    lo, hi = sqrt_time_band(losses, confidences, horizons, level)
-    return RiskEstimate(
-        var=scale_sqrt_time(var1, horizons),
-        es=scale_sqrt_time(es1, horizons),
-        scaling=sqrt_time_labels(horizons),
-        n_obs=np.full(len(horizons), sample.n_obs),
-        var_lo=lo,
-        var_hi=hi,
+    return sqrt_time_estimate(
+        var1,
+        es1,
+        horizons,
+        sample.n_obs,
+        band=sqrt_time_band(losses, confidences, horizons, level),
         diagnostics={
             "k": {str(c): tail_count(sample.n_obs, c) for c in confidences},
             "band": "order_statistic",

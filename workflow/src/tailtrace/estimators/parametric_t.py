@@ -11,7 +11,7 @@ from scipy.special import gammaln, polygamma, stdtrit
 from ..errors import ConvergenceWarning
 from .base import RiskEstimate, RiskSample
 from .parametric import portfolio_moments
-from .scaling import sqrt_time_labels
+from .scaling import location_scale_var_es, sqrt_time_labels
 
 __all__ = [
     "DOF_BOUNDS",
@@ -279,13 +279,10 @@ def estimate(
     bounds = tuple(float(b) for b in options.get("dof_bounds", DOF_BOUNDS))
     mu, sigma, _ = portfolio_moments(sample, include_mean)
     nu, fitted, degenerate = portfolio_dof(sample.pnl, bounds)
-    f_var, f_es = t_factors(nu, confidences)
-    h = np.asarray(horizons, dtype=float)
-    sig = sigma[:, None, None] * np.sqrt(h)
-    drift = mu[:, None, None] * h
+    var, es = location_scale_var_es(mu, sigma, *t_factors(nu, confidences), horizons)
     return RiskEstimate(
-        var=sig * f_var[:, :, None] - drift,
-        es=sig * f_es[:, :, None] - drift,
+        var=var,
+        es=es,
         scaling=sqrt_time_labels(horizons),
         n_obs=np.full(len(horizons), sample.n_obs),
         diagnostics={
