@@ -178,7 +178,9 @@ def risk_contributions(
     options : mapping
         The method's own options, as given to its estimator.
     seed : int or Generator
-        For simulation methods; every recomputation reuses the same paths.
+        For simulation methods; every derived book uses the same paths. An
+        int gives the paths the estimator draws with that seed (so figures
+        match ``risk_figures``); a Generator is first turned into one int.
     bandwidth : float
         Kernel bandwidth factor ``b = bandwidth · sd(L) · n_eff^(−1/5)``
         (kernel methods only; default 1.06).
