@@ -64,7 +64,8 @@ def acerbi_szekely_z2(pnl: np.ndarray, var: np.ndarray, es: np.ndarray, coverage
     ----------
     pnl : array_like, shape (..., T)
         Realised P&L X_t (profit positive).
-    var, es : array_like, broadcastable to ``pnl``
+    var, es : array_like
+        Broadcast together with ``pnl``.
         VaR and ES forecasts as positive loss amounts.
     coverage : array_like
         Confidence level, broadcastable to ``pnl.shape[:-1]``.
@@ -82,9 +83,7 @@ def acerbi_szekely_z2(pnl: np.ndarray, var: np.ndarray, es: np.ndarray, coverage
     Acerbi, C. and Szekely, B. (2014). Backtesting expected shortfall.
     Risk, December 2014.
     """
-    x = np.asarray(pnl, dtype=float)
-    var_b = np.broadcast_to(np.asarray(var, dtype=float), x.shape)
-    es_b = np.broadcast_to(np.asarray(es, dtype=float), x.shape)
+    x, var_b, es_b = np.broadcast_arrays(*(np.asarray(a, dtype=float) for a in (pnl, var, es)))
     hit = x < -var_b
     ratio = np.divide(x, es_b, out=np.zeros(x.shape), where=hit & (es_b > 0))
     ratio[hit & (es_b <= 0)] = -np.inf
