@@ -125,7 +125,9 @@ def prepare(
     ConfigError
         Window, backtest length or confidences that cannot work with the data.
     """
-    x = np.asarray(pnl, dtype=float)
+    # C order: reductions then run in the same order whatever the caller's layout,
+    # so results are bit-identical for equal data.
+    x = np.ascontiguousarray(pnl, dtype=float)
     if x.ndim != 2:
         raise ValueError(f"pnl must be a (portfolios, days) array, got shape {x.shape}")
     bad = np.argwhere(~np.isfinite(x))
