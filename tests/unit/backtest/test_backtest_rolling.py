@@ -147,10 +147,10 @@ def test_cornish_fisher_tail_mean_matches_numerical_integral(s, k):
 def test_cornish_fisher_monotone_check_against_a_grid():
     # Brute force: the derivative of the expansion on a fine grid of the left tail.
     rng = np.random.default_rng(4)
-    s = rng.uniform(-2, 2, 400)
-    k = rng.uniform(-2, 12, 400)
+    s = rng.uniform(-2, 2, 300)
+    k = rng.uniform(-2, 12, 300)
     q = stats.norm.ppf(0.01)
-    grid = -np.geomspace(1e4, -q, 100001)  # ascending, far into the tail (a < 0 turns late)
+    grid = -np.geomspace(1e4, -q, 30001)  # ascending, far into the tail (a < 0 turns late)
     values = cf_quantile(grid[:, None], s, k)
     brute = np.all(np.diff(values, axis=0) > 0, axis=0)
     assert np.array_equal(cf_tail_monotone(q, s, k), brute)
