@@ -251,14 +251,15 @@ def rolling_moments(setup: ForecastSetup, order: int = 2) -> dict[str, np.ndarra
     for days, win in day_windows(setup.pnl, setup.window, setup.first, setup.first + setup.days):
         mean = win.mean(axis=-1)
         dev = win - mean[..., None]
-        m2 = np.mean(dev * dev, axis=-1)
+        dev2 = dev * dev
+        m2 = np.mean(dev2, axis=-1)
         out["mean"][:, days] = mean
         out["std"][:, days] = np.sqrt(m2 * setup.window / (setup.window - 1))
         if order == 4:
             pos = m2 > 0
             safe = np.where(pos, m2, 1.0)
-            m3 = np.mean(dev**3, axis=-1)
-            m4 = np.mean(dev**4, axis=-1)
+            m3 = np.mean(dev2 * dev, axis=-1)
+            m4 = np.mean(dev2 * dev2, axis=-1)
             out["skew"][:, days] = np.where(pos, m3 / safe**1.5, 0.0)
             out["exkurt"][:, days] = np.where(pos, m4 / safe**2 - 3.0, 0.0)
     return out
