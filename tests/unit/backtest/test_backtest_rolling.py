@@ -355,6 +355,12 @@ def test_bad_inputs_are_named():
         FORECASTERS["historical"](x, CONF, window=250, days=100)
     with pytest.raises(ConfigError, match="unknown option"):
         FORECASTERS["ewma_normal"](x, CONF, window=50, days=20, options={"lamda": 0.9})
+    with pytest.raises(ConfigError, match="option 'include_mean' must be bool"):
+        FORECASTERS["parametric_normal"](x, CONF, window=50, days=20, options={"include_mean": "no"})
+    with pytest.raises(ConfigError, match="option 'refit_every' must be int"):
+        FORECASTERS["parametric_t"](x, CONF, window=50, days=20, options={"refit_every": 2.5})
+    with pytest.raises(ConfigError, match="paths must be at least 2"):
+        FORECASTERS["monte_carlo"](x, CONF, window=50, days=20, options={"paths": 1})
     with pytest.raises(ConfigError, match="confidences"):
         FORECASTERS["historical"](x, [99.0], window=50, days=20)
     y = x.copy()

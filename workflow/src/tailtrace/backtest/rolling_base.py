@@ -151,11 +151,27 @@ def prepare(
 
 
 def read_options(method: str, options: Mapping[str, Any] | None, defaults: Mapping[str, Any]) -> dict[str, Any]:
-    """Merge user options over defaults; unknown keys are a ConfigError."""
+    """Merge user options over defaults.
+
+    Unknown keys, and values whose type does not match the default's (bool,
+    int or number), are a ConfigError naming the method and the key.
+    """
     given = dict(options or {})
     unknown = sorted(set(given) - set(defaults))
     if unknown:
         raise ConfigError(f"{method}: unknown option(s) {unknown}; allowed: {sorted(defaults)}")
+    for key, value in given.items():
+        default = defaults[key]
+        if isinstance(default, bool):
+            ok = isinstance(value, (bool, np.bool_))
+        elif isinstance(default, int):
+            ok = isinstance(value, (int, np.integer)) and not isinstance(value, bool)
+        elif isinstance(default, float):
+            ok = isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool)
+        else:
+            ok = True
+        if not ok:
+            raise ConfigError(f"{method}: option {key!r} must be {type(default).__name__}, got {value!r}")
     return {**defaults, **given}
 
 

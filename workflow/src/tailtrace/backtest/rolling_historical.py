@@ -13,7 +13,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
-from ..errors import ModelWarning
+from ..errors import ConfigError, ModelWarning
 from .rolling_base import (
     ForecastSetup,
     RollingForecast,
@@ -264,6 +264,8 @@ def forecast_filtered_historical(
     setup = prepare(pnl, confidences, window, days, min_window=10)
     refit_every = int(opts["refit_every"])
     offsets = refit_offsets(setup.days, refit_every)
+    if opts["fit_window"] < 1 or opts["min_fit_obs"] < 1:
+        raise ConfigError(f"filtered_historical: fit_window and min_fit_obs must be positive, got {opts}")
     fit_window = max(int(opts["fit_window"]), setup.window)
     W, T0, x = setup.window, setup.first, setup.pnl
     # EWMA path (fallback) over [T0 - W, T0 + D): same seeding as ewma_normal.

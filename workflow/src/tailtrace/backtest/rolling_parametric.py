@@ -13,7 +13,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 from scipy.special import ndtri
 
-from ..errors import ModelWarning
+from ..errors import ConfigError, ModelWarning
 from ..estimators.base import as_generator
 from .cornish_fisher import cf_quantile, cf_tail_mean, cf_tail_monotone
 from .rolling_base import (
@@ -307,8 +307,8 @@ def forecast_monte_carlo(
     setup = prepare(pnl, confidences, window, days)
     paths = int(opts["paths"])
     k = tail_count(paths, setup.confidences)
-    if paths < 2 or int(k.max()) > paths:
-        raise ValueError(f"monte_carlo: paths must be >= 2 and exceed the tail count, got {paths}")
+    if paths < 2:
+        raise ConfigError(f"monte_carlo: paths must be at least 2, got {paths}")
     rng = as_generator(seed)
     unit_var = np.empty((setup.days, k.size))
     unit_es = np.empty((setup.days, k.size))
