@@ -133,7 +133,9 @@ def test_actual_pnl_replaces_the_hypothetical(setup, tmp_path):
     assert any("extra column" in str(w.message) for w in record)
     assert any("west" in str(w.message) for w in record)
     np.testing.assert_array_equal(actual, [[0, 1, 2], [100, 101, 102], [200, 201, 202]])
-    res = run_backtest(x, dates, names, methods=["historical"], confidences=[0.99], window=100, days=3, actual_pnl=actual)
+    res = run_backtest(
+        x, dates, names, methods=["historical"], confidences=[0.99], window=100, days=3, actual_pnl=actual
+    )
     assert res.pnl_source == "actual"
     assert summary_rows(res)[0]["pnl_source"] == "actual"
 

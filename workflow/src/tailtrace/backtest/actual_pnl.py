@@ -67,7 +67,9 @@ def read_actual_pnl(path: str | Path, portfolios: Sequence[str], dates: Sequence
         header = [h.strip() for h in header]
         missing = [c for c in ACTUAL_PNL_COLUMNS if c not in header]
         if missing:
-            raise InputError(f"missing column(s) {missing}; the header must hold {list(ACTUAL_PNL_COLUMNS)}", file=str(path), row=1)
+            raise InputError(
+                f"missing column(s) {missing}; the header must hold {list(ACTUAL_PNL_COLUMNS)}", file=str(path), row=1
+            )
         extra = [c for c in header if c not in ACTUAL_PNL_COLUMNS]
         if extra:
             warnings.warn(f"{path}: extra column(s) {extra} ignored", DataQualityWarning, stacklevel=2)
@@ -83,7 +85,9 @@ def read_actual_pnl(path: str | Path, portfolios: Sequence[str], dates: Sequence
             try:
                 day = dt.date.fromisoformat(raw_date)
             except ValueError:
-                raise InputError("not a calendar date", file=str(path), row=line, column="date", value=raw_date) from None
+                raise InputError(
+                    "not a calendar date", file=str(path), row=line, column="date", value=raw_date
+                ) from None
             name = fields[col["portfolio"]].strip()
             if not name:
                 raise InputError("empty portfolio name", file=str(path), row=line, column="portfolio")
@@ -103,11 +107,17 @@ def read_actual_pnl(path: str | Path, portfolios: Sequence[str], dates: Sequence
             p_i = p_index[name]
             if not np.isnan(out[p_i, d_i]):
                 raise InputError(
-                    f"second P&L for portfolio {name!r} on {raw_date}", file=str(path), row=line, column="pnl", value=raw_pnl
+                    f"second P&L for portfolio {name!r} on {raw_date}",
+                    file=str(path),
+                    row=line,
+                    column="pnl",
+                    value=raw_pnl,
                 )
             out[p_i, d_i] = value
     if unknown:
-        warnings.warn(f"{path}: rows for unknown portfolio(s) {sorted(unknown)} ignored", DataQualityWarning, stacklevel=2)
+        warnings.warn(
+            f"{path}: rows for unknown portfolio(s) {sorted(unknown)} ignored", DataQualityWarning, stacklevel=2
+        )
     gaps = np.argwhere(np.isnan(out))
     if gaps.size:
         p_i, d_i = gaps[0]

@@ -50,8 +50,8 @@ class RollingForecast:
         and backtest day.
     fallback : numpy.ndarray of bool, shape (P, C, D)
         True where the method's documented fallback replaced its own model
-        (Cornish-Fisher not monotone, GARCH fit failed). All False for
-        methods without one.
+        (Cornish-Fisher not monotone, GARCH fit failed). None at
+        construction means all False.
     diagnostics : dict
         JSON-serialisable notes (fitted parameters, fallback reasons).
     """
@@ -59,11 +59,13 @@ class RollingForecast:
     method: str
     var: np.ndarray
     es: np.ndarray
-    fallback: np.ndarray
+    fallback: np.ndarray | None = None
     diagnostics: Mapping[str, Any] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         shape = np.shape(self.var)
+        if self.fallback is None:  # methods without a fallback
+            object.__setattr__(self, "fallback", np.zeros(shape, bool))
         if len(shape) != 3 or np.shape(self.es) != shape or np.shape(self.fallback) != shape:
             raise ValueError(
                 f"{self.method}: var, es and fallback must share a (P, C, D) shape, got "

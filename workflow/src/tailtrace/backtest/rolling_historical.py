@@ -94,7 +94,7 @@ def forecast_historical(
     read_options("historical", options, {})
     setup = prepare(pnl, confidences, window, days)
     var, es = _hs(setup)
-    return RollingForecast("historical", var, es, np.zeros(var.shape, bool), {})
+    return RollingForecast("historical", var, es, diagnostics={})
 
 
 def age_weights(n: int, lam: float) -> np.ndarray:
@@ -206,7 +206,7 @@ def forecast_age_weighted_historical(
         v, e = weighted_tail(-win, w, alpha)  # (P, n, C)
         var[:, :, days_slice] = v.transpose(0, 2, 1)
         es[:, :, days_slice] = e.transpose(0, 2, 1)
-    return RollingForecast("age_weighted_historical", var, es, np.zeros(var.shape, bool), {"lambda": float(opts["lambda"])})
+    return RollingForecast("age_weighted_historical", var, es, diagnostics={"lambda": float(opts["lambda"])})
 
 
 _FHS_DEFAULTS = {"refit_every": 20, "fit_window": 1000, "min_fit_obs": 250, "lambda": 0.94}

@@ -94,7 +94,7 @@ def forecast_parametric_normal(
     mom = rolling_moments(setup)
     z, es_f = normal_factors(setup.confidences)
     var, es = _location_scale(mom["mean"], mom["std"], z, es_f, bool(opts["include_mean"]))
-    return RollingForecast("parametric_normal", var, es, np.zeros(var.shape, bool), {"include_mean": bool(opts["include_mean"])})
+    return RollingForecast("parametric_normal", var, es, diagnostics={"include_mean": bool(opts["include_mean"])})
 
 
 def forecast_ewma_normal(
@@ -138,7 +138,7 @@ def forecast_ewma_normal(
     sigma = np.sqrt(s2[:, setup.window :])
     z, es_f = normal_factors(setup.confidences)
     var, es = _location_scale(sigma, sigma, z, es_f, False)
-    return RollingForecast("ewma_normal", var, es, np.zeros(var.shape, bool), {"lambda": float(opts["lambda"])})
+    return RollingForecast("ewma_normal", var, es, diagnostics={"lambda": float(opts["lambda"])})
 
 
 def forecast_parametric_t(
@@ -196,7 +196,7 @@ def forecast_parametric_t(
     mom = rolling_moments(setup)
     var, es = _location_scale(mom["mean"], mom["std"], f_var, f_es, bool(opts["include_mean"]))
     diag = {**opts, "refit_offsets": offsets.tolist(), "dof": np.round(nu_fit, 4).tolist()}
-    return RollingForecast("parametric_t", var, es, np.zeros(var.shape, bool), diag)
+    return RollingForecast("parametric_t", var, es, diagnostics=diag)
 
 
 def forecast_cornish_fisher(
@@ -327,4 +327,4 @@ def forecast_monte_carlo(
     pdf = np.exp(-0.5 * z * z) / np.sqrt(2 * np.pi)
     se_rel = np.sqrt(alpha * (1 - alpha) / paths) / pdf / z  # asymptotic sample-quantile error
     diag = {"paths": paths, "include_mean": bool(opts["include_mean"]), "var_se_rel": np.round(se_rel, 6).tolist()}
-    return RollingForecast("monte_carlo", var, es, np.zeros(var.shape, bool), diag)
+    return RollingForecast("monte_carlo", var, es, diagnostics=diag)
