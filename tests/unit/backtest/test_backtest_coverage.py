@@ -120,12 +120,11 @@ def test_clustered_exceptions_reject_independence():
 
 
 def test_iid_bernoulli_rejects_independence_at_about_the_nominal_rate():
-    # 4,000 independent seeded sequences (one Generator, one row each), T = 2000, p = 5%,
+    # 4,000 sequences, each from its own seed 0..3999, T = 2000, p = 5%,
     # where the chi-squared(1) approximation holds well. Binomial standard error of the
     # rate is 0.35%; the band allows 3.5 of them (the LR test's own size is 5.0-5.6% here).
     # At T = 250, p = 1% the test's finite-sample size is far from 5% (about 1.7%): see docs.
-    rng = np.random.default_rng(20240501)
-    hits = rng.random((4000, 2000)) < 0.05
+    hits = np.stack([np.random.default_rng(seed).random(2000) < 0.05 for seed in range(4000)])
     res = coverage_tests(hits, 0.95)
     rate = float(np.mean(res.independence_p < 0.05))
     assert 0.038 <= rate <= 0.068
