@@ -67,7 +67,7 @@ def test_summary_rows_agree_with_the_statistics(result):
     assert {r["zone"] for r in rows} <= {"green", "yellow", "red"}
     for r in rows:
         if r["confidence"] == 0.99:
-            assert r["es_thresholds"] == "simulated_normal"
+            assert r["es_thresholds"] == "normal_null"
 
 
 def test_published_z2_thresholds_used_for_250_days_at_975(result):

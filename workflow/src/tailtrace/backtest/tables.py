@@ -8,7 +8,7 @@ import numpy as np
 
 from .coverage import coverage_tests
 from .result import BacktestResult
-from .shortfall import DEFAULT_SEED, DEFAULT_SIMS, acerbi_szekely_z2, z2_p_value, z2_thresholds, z2_zone
+from .shortfall import acerbi_szekely_z2, z2_p_value, z2_thresholds, z2_zone
 from .zones import exception_rate, traffic_light
 
 __all__ = ["SUMMARY_COLUMNS", "FORECAST_COLUMNS", "summary_rows", "summary_table", "forecast_table"]
@@ -42,13 +42,7 @@ SUMMARY_COLUMNS = (
 FORECAST_COLUMNS = ("date", "portfolio", "method", "confidence", "var", "es", "pnl", "exception", "fallback")
 
 
-def summary_rows(
-    result: BacktestResult,
-    *,
-    plus_factor_rule: str = "equivalent_probability",
-    es_sims: int = DEFAULT_SIMS,
-    es_seed: int = DEFAULT_SEED,
-) -> list[dict[str, Any]]:
+def summary_rows(result: BacktestResult, *, plus_factor_rule: str = "equivalent_probability") -> list[dict[str, Any]]:
     """Backtest statistics per (method, portfolio, confidence).
 
     Parameters
@@ -56,9 +50,6 @@ def summary_rows(
     result : BacktestResult
     plus_factor_rule : str
         See :func:`~tailtrace.backtest.zones.traffic_light`.
-    es_sims, es_seed : int
-        Size and seed of the Z2 null simulation (thresholds other than the
-        published case, and the p-value).
 
     Returns
     -------
@@ -66,14 +57,14 @@ def summary_rows(
         One row per (method, portfolio, confidence), in that order, with
         :data:`SUMMARY_COLUMNS` as keys. Dates are ``datetime.date``;
         ``exception_dates`` a list of ISO strings; ``es_thresholds`` says
-        whether the Z2 zone used the published or simulated thresholds.
+        whether the Z2 zone used the published or the normal-null thresholds.
 
     Notes
     -----
     Exceptions ``pnl < -VaR``; Kupiec POF and Christoffersen
     independence / conditional coverage (:mod:`.coverage`); traffic light
     for n days at each confidence (:mod:`.zones`); Acerbi-Szekely Z2 with
-    its zone and simulated p-value (:mod:`.shortfall`).
+    its zone and p-value under the normal null (:mod:`.shortfall`).
     """
     hits = result.exceptions  # (M, P, C, D)
     conf = result.confidences
@@ -90,10 +81,10 @@ def summary_rows(
             tests.exceptions[..., c_idx], n, float(c), plus_factor_rule=plus_factor_rule
         )
         alpha = float(exception_rate(c))
-        th = z2_thresholds(n, alpha, sims=es_sims, seed=es_seed)
+        th = z2_thresholds(n, alpha)
         sources.append(th.source)
         es_zone[..., c_idx] = z2_zone(z2[..., c_idx], th)
-        es_p[..., c_idx] = z2_p_value(z2[..., c_idx], n, alpha, sims=es_sims, seed=es_seed)
+        es_p[..., c_idx] = z2_p_value(z2[..., c_idx], n, alpha)
     fallback_days = np.count_nonzero(result.fallback, axis=-1)
     iso = np.datetime_as_string(result.dates, unit="D")
     first, last = result.dates[0].item(), result.dates[-1].item()
