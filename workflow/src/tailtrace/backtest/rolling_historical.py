@@ -291,7 +291,7 @@ def forecast_filtered_historical(
             s2[p, :W] = fit.variance[-W:]
             s2[p, W:] = garch_variance_extend(fit, x[p, t0 - 1], x[p, t0 : T0 + d1 - 1])
             garch_used[p, d0:d1] = True
-            block_params.append([round(fit.omega, 12), round(fit.alpha, 6), round(fit.beta, 6)])
+            block_params.append([float(f"{v:.6g}") for v in (fit.omega, fit.alpha, fit.beta)])
         params.append(block_params)
         sigma = np.sqrt(s2)
         z = np.divide(x[:, span], sigma, out=np.zeros(sigma.shape), where=sigma > 0)
