@@ -25,6 +25,7 @@ include: "workflow/rules/ingest.smk"
 include: "workflow/rules/returns.smk"
 include: "workflow/rules/estimate.smk"
 include: "workflow/rules/stress.smk"
+include: "workflow/rules/backtest.smk"
 include: "workflow/rules/aggregate.smk"
 include: "workflow/rules/report.smk"
 

@@ -116,6 +116,7 @@ def record_files():
     rules = ["ingest_instruments", "ingest_positions", "build_returns", "build_scenarios"]
     rules += [f"estimate_{m}" for m in config["methods"]]
     rules += ["stress"] if stress_enabled() else []
+    rules += ["backtest"] if backtest_enabled() else []
     return [prov_path(r) for r in rules] + [prov_path("ingest_prices", f"{n}.json") for n in price_names()]
 
 
@@ -145,6 +146,11 @@ def stress_settings():
 def extra_table_files():
     """DuckDB table name -> Parquet file the aggregate stores besides the figures."""
     files = {"sensitivities": result_path("scenarios", "sensitivities.parquet")}
+    if backtest_enabled():
+        files.update({
+            "backtest_forecasts": result_path("backtest", "forecasts.parquet"),
+            "backtest_summary": result_path("backtest", "summary.parquet"),
+        })
     if stress_enabled():
         files.update({
             "stress_results": result_path("stress", "stress_results.parquet"),
@@ -158,3 +164,13 @@ def limits_input():
     """The limits file as a named input, or nothing when report.limits is null."""
     path = config["report"]["limits"]
     return {"limits": repo_path(path)} if path else {}
+
+
+def backtest_enabled():
+    return bool(config["backtest"]["enabled"])
+
+
+def pnl_actual_input():
+    """data_dir/pnl_actual.csv (date, portfolio, pnl) when it exists: realised P&L for the backtest."""
+    path = Path(data_path("pnl_actual"))
+    return {"pnl_actual": str(path)} if path.exists() else {}

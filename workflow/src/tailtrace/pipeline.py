@@ -30,6 +30,7 @@ __all__ = [
     "as_of_seed",
     "parse_json_param",
     "run_stress_step",
+    "run_backtest_step",
 ]
 
 log = logging.getLogger("tailtrace")
@@ -299,4 +300,54 @@ def run_stress_step(market_files: Mapping[str, str], exposures: str, positions: 
         from .figures import FIGURE_SCHEMA
 
         write_parquet(FIGURE_SCHEMA.empty_table(), outputs["figures"])
+    return notes
+
+
+def run_backtest_step(market_files: Mapping[str, str], exposures: str, positions: str, instruments: str,
+                      outputs: Mapping[str, str], *, methods: Sequence[str], confidences: Sequence[float],
+                      days: int, window_days: int, options: Mapping[str, Mapping[str, Any]], seed: int,
+                      plus_factor_rule: str, pnl_actual: str | None, currency: str, positions_file: str,
+                      instruments_file: str) -> dict[str, Any]:
+    """Rolling 1-day backtest of every method for every as_of of the run.
+
+    The P&L series is today's book revalued under each historical day
+    (hypothetical P&L, positions held fixed); ``pnl_actual`` replaces the
+    realised side when given. With a history shorter than window + days the
+    backtest covers what the history allows (logged).
+    """
+    from .backtest import forecast_table, read_actual_pnl, run_backtest, summary_table
+    from .scenarios import build_sample
+
+    market = _market_for_books(market_files)
+    days_of_run = sorted(set(pq.read_table(exposures, columns=["as_of"]).column("as_of").to_numpy()
+                             .astype("datetime64[D]")))
+    books = books_for(market, pq.read_table(positions), pq.read_table(instruments), days_of_run,
+                      base_currency=currency, positions_file=positions_file, instruments_file=instruments_file)
+    forecasts, summaries, notes = [], [], {}
+    for book in books:
+        sample = build_sample(market, book, window_days)
+        pnl = book.revalue(sample.history, 1)
+        n_days = min(int(days), pnl.shape[1] - window_days)
+        if n_days < 20:
+            log.warning("as_of %s: %d days of history leave no backtest beyond the %d-day window; skipped",
+                        book.as_of, pnl.shape[1], window_days)
+            notes[str(book.as_of)] = {"skipped": True}
+            continue
+        if n_days < days:
+            log.warning("as_of %s: history allows a %d-day backtest, not %d", book.as_of, n_days, days)
+        dates = sample.history_dates
+        actual = read_actual_pnl(pnl_actual, sample.portfolios, dates[-n_days:]) if pnl_actual else None
+        result = run_backtest(pnl, dates, sample.portfolios, methods=methods, confidences=confidences,
+                              window=window_days, days=n_days, options=options, actual_pnl=actual,
+                              seed=as_of_seed(seed, book.as_of))
+        for table, bucket in ((forecast_table(result), forecasts),
+                              (summary_table(result, plus_factor_rule=plus_factor_rule), summaries)):
+            bucket.append(table.add_column(0, "as_of", pa.array(np.full(table.num_rows, book.as_of), pa.date32())))
+        notes[str(book.as_of)] = {"days": n_days, "first": str(dates[-n_days]), "last": str(dates[-1]),
+                                  "pnl_source": "actual" if actual is not None else "hypothetical"}
+    for key, parts in (("forecasts", forecasts), ("summary", summaries)):
+        if parts:
+            write_parquet(pa.concat_tables(parts), outputs[key])
+        else:
+            write_parquet(pa.table({"as_of": pa.array([], pa.date32())}), outputs[key])
     return notes
