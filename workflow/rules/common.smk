@@ -117,6 +117,7 @@ def record_files():
     rules += [f"estimate_{m}" for m in config["methods"]]
     rules += ["stress"] if stress_enabled() else []
     rules += ["backtest"] if backtest_enabled() else []
+    rules += ["contributions"] if config["contributions"]["methods"] else []
     return [prov_path(r) for r in rules] + [prov_path("ingest_prices", f"{n}.json") for n in price_names()]
 
 
@@ -146,6 +147,8 @@ def stress_settings():
 def extra_table_files():
     """DuckDB table name -> Parquet file the aggregate stores besides the figures."""
     files = {"sensitivities": result_path("scenarios", "sensitivities.parquet")}
+    if config["contributions"]["methods"]:
+        files["risk_contributions"] = result_path("contributions", "risk_contributions.parquet")
     if backtest_enabled():
         files.update({
             "backtest_forecasts": result_path("backtest", "forecasts.parquet"),

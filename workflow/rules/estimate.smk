@@ -37,3 +37,36 @@ for _method in config["methods"]:
             ENV
         script:
             "../scripts/estimate.py"
+
+
+rule contributions:
+    input:
+        **market_outputs(),
+        exposures=rules.build_scenarios.output.exposures,
+        positions=rules.ingest_positions.output.positions,
+        instruments=rules.ingest_instruments.output.instruments,
+    output:
+        contributions=result_path("contributions", "risk_contributions.parquet"),
+        prov=prov_path("contributions"),
+    log:
+        log_path("contributions"),
+    benchmark:
+        bench_path("contributions")
+    resources:
+        mem_mb=4000,
+        runtime=30,
+    params:
+        methods=config["contributions"]["methods"],
+        method_options=as_json({m: config.get(m, {}) for m in config["contributions"]["methods"]}),
+        confidences=config["confidences"],
+        horizons=config["horizons_days"],
+        window_days=config["window_days"],
+        currency=config["base_currency"],
+        positions_file=data_path("positions"),
+        instruments_file=data_path("instruments"),
+        code=code_version("decomposition", "estimators", "scenarios", "market", "options", "pipeline",
+                          "provenance"),
+    conda:
+        ENV
+    script:
+        "../scripts/contributions.py"

@@ -31,6 +31,7 @@ __all__ = [
     "parse_json_param",
     "run_stress_step",
     "run_backtest_step",
+    "run_contributions_step",
 ]
 
 log = logging.getLogger("tailtrace")
@@ -351,3 +352,51 @@ def run_backtest_step(market_files: Mapping[str, str], exposures: str, positions
         else:
             write_parquet(pa.table({"as_of": pa.array([], pa.date32())}), outputs[key])
     return notes
+
+
+def run_contributions_step(market_files: Mapping[str, str], exposures: str, positions: str, instruments: str,
+                           out: str, *, methods: Sequence[str], method_options: Mapping[str, Mapping[str, Any]],
+                           confidences: Sequence[float], horizons: Sequence[int], window_days: int,
+                           currency: str, positions_file: str, instruments_file: str) -> dict[str, Any]:
+    """Risk decomposition (marginal, component, incremental, stand-alone) of the run's latest as_of.
+
+    Books with options are decomposed on their delta-equivalent linear book
+    (the ``allocation`` column says so): Euler allocation needs a P&L that is
+    homogeneous in the holdings, which option payoffs are not.
+    """
+    import pyarrow.compute as pcompute
+
+    from .decomposition import risk_contributions
+    from .estimators.samples import linear_sample
+    from .scenarios import build_sample
+
+    market = _market_for_books(market_files)
+    day = max(set(pq.read_table(exposures, columns=["as_of"]).column("as_of").to_numpy().astype("datetime64[D]")))
+    book = books_for(market, pq.read_table(positions), pq.read_table(instruments), [day], base_currency=currency,
+                     positions_file=positions_file, instruments_file=instruments_file)[0]
+    sample = build_sample(market, book, window_days)
+    with_options: list[str] = []
+    if book.sensitivities is not None:
+        sens = book.sensitivities
+        flags = pcompute.not_equal(sens.column("model"), "linear")
+        with_options = sorted(set(sens.filter(flags).column("portfolio").to_pylist()))
+    delta_equivalent = sample.gammas is not None
+    if delta_equivalent:
+        sample = linear_sample(sample.returns, sample.values, history=sample.history, dates=sample.dates,
+                               portfolios=sample.portfolios, instruments=sample.instruments)
+        sample = dataclasses.replace(sample, as_of=book.as_of)
+    tables = []
+    for method in methods:
+        result = risk_contributions(sample, method, confidences, horizons, options=method_options.get(method, {}),
+                                    seed=int(as_of_seed(0, book.as_of).integers(2**31)))
+        table = result.to_table()
+        table = table.filter(pcompute.not_equal(table.column("position_value"), 0.0))  # instruments not held
+        if with_options:
+            col = table.column_names.index("allocation")
+            marked = pcompute.is_in(table.column("portfolio"), pa.array(with_options))
+            label = pcompute.if_else(marked, pcompute.binary_join_element_wise(
+                table.column("allocation"), " (delta-equivalent book)", ""), table.column("allocation"))
+            table = table.set_column(col, "allocation", label)
+        tables.append(table)
+    write_parquet(pa.concat_tables(tables), out)
+    return {"as_of": str(book.as_of), "methods": list(methods), "delta_equivalent_portfolios": with_options}
