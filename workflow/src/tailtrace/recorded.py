@@ -22,6 +22,7 @@ __all__ = [
     "RecordedRun",
     "FigureKey",
     "raw_inputs",
+    "fetch_dicts",
     "has_table",
     "load_run",
     "list_runs",
@@ -149,6 +150,11 @@ class RecordedRun:
         return self.resolve(self.config.get("data_dir", "data_demo"))
 
 
+def fetch_dicts(con: duckdb.DuckDBPyConnection, sql: str, params: Sequence[Any] = ()) -> list[dict[str, Any]]:
+    """Rows of a parameterised query as dicts."""
+    return con.sql(sql, params=list(params)).to_arrow_table().to_pylist()
+
+
 def has_table(con: duckdb.DuckDBPyConnection, name: str) -> bool:
     return bool(con.execute("SELECT count(*) FROM information_schema.tables WHERE table_name = ?", [name]).fetchone()[0])
 
@@ -219,12 +225,12 @@ def figure_of_run(con: duckdb.DuckDBPyConnection, run: RecordedRun, key: FigureK
     (row as a dict, or None; "risk_figures", "figure file <path> (<origin>)"
     or the reason it is not available)
     """
-    rows = con.execute(
-        "SELECT * FROM risk_figures WHERE as_of = ?::DATE AND portfolio = ? AND method = ? AND confidence = ? "
+    rows = fetch_dicts(
+        con, "SELECT * FROM risk_figures WHERE as_of = ?::DATE AND portfolio = ? AND method = ? AND confidence = ? "
         "AND horizon_days = ? AND run_id = ?",
-        [key.as_of, key.portfolio, key.method, float(key.confidence), int(key.horizon), run.run_id]).fetch_arrow_table()
-    if rows.num_rows:
-        return rows.to_pylist()[0], "risk_figures"
+        [key.as_of, key.portfolio, key.method, float(key.confidence), int(key.horizon), run.run_id])
+    if rows:
+        return rows[0], "risk_figures"
     rule = f"estimate_{key.method}"
     if not run.has_step(rule):
         return None, f"run {run.run_id} did not run method {key.method}"
