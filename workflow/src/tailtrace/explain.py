@@ -10,6 +10,7 @@ from __future__ import annotations
 import decimal
 import json
 import tempfile
+import textwrap
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Mapping, Sequence
@@ -346,8 +347,9 @@ def explain_change(db_path: str | Path, key_from: FigureKey, key_to: FigureKey, 
             runs.append(run)
             stored.append((row, where))
             states.append((positions, source, Parameters.from_params(run.step(f"estimate_{key.method}").params)))
+    same = [tuple(r.step("build_returns").output(k).sha256 for k in ("base", "returns")) for r in runs]
     markets = [load_market(runs[0])]
-    markets.append(markets[0] if runs[1].run_id == runs[0].run_id else load_market(runs[1]))
+    markets.append(markets[0] if same[0] == same[1] else load_market(runs[1]))
     s1 = State(states[0][0], states[0][1], markets[0][0], np.datetime64(key_from.as_of, "D"), states[0][2])
     s2 = State(states[1][0], states[1][1], markets[1][0], np.datetime64(key_to.as_of, "D"), states[1][2])
 
@@ -420,6 +422,7 @@ def format_explain(e: Mapping[str, Any]) -> str:
         lines.append(f"{c['component']:<14}{c['var']:>+{width},.2f}{c['es']:>+{width},.2f}")
     lines += [f"{'to':<14}{b['var']:>{width},.2f}{b['es']:>{width},.2f}",
               f"{'total change':<14}{e['total']['var']:>+{width},.2f}{e['total']['es']:>+{width},.2f}",
-              "", "Ordering: " + e["ordering"], ""]
-    lines += [f"- {n}" for n in e["notes"]]
+              ""]
+    lines += textwrap.wrap("Ordering: " + e["ordering"], 100) + [""]
+    lines += [line for n in e["notes"] for line in textwrap.wrap(n, 100, initial_indent="- ", subsequent_indent="  ")]
     return "\n".join(lines)

@@ -133,18 +133,22 @@ def _window_table(steps: Sequence[StepRecord], rid: str, exposures: pa.Table, fi
     pairs = exposures.group_by(["as_of", "instrument"]).aggregate([]).sort_by([("as_of", "ascending"),
                                                                            ("instrument", "ascending")])
     day = pairs.column("as_of").to_numpy().astype("datetime64[D]")
-    held = np.asarray(pairs.column("instrument").to_pylist(), dtype=object)
-    fx = np.array([fx_instrument(ccy[i]) if ccy[i] != base_ccy else "" for i in held], dtype=object)
+    names_u, inv = np.unique(np.asarray(pairs.column("instrument").to_pylist(), dtype=object), return_inverse=True)
     # each held instrument reads its own series and, if quoted in another currency, its FX series
-    k_day = np.concatenate([day, day[fx != ""]])
-    k_inst = np.concatenate([held, held[fx != ""]])
-    k_series = np.concatenate([held, fx[fx != ""]])
-    col = np.array([market.column(s) for s in k_series], dtype=np.int64)
+    fx_u = np.array([fx_instrument(ccy[i]) if ccy[i] != base_ccy else "" for i in names_u], dtype=object)
+    column = {n: j for j, n in enumerate(market.instruments)}
+    has_fx = fx_u[inv] != ""
+    k_day = np.concatenate([day, day[has_fx]])
+    k_inst = np.concatenate([names_u[inv], names_u[inv][has_fx]])
+    k_series = np.concatenate([names_u[inv], fx_u[inv][has_fx]])
+    series_u, series_inv = np.unique(k_series, return_inverse=True)
+    col = np.array([column[x] for x in series_u], dtype=np.int64)[series_inv]
     used = window_usage(market, k_day, window, col)
+    files = np.array([file_of[x] for x in series_u], dtype=object)[series_inv]
     return pa.table({
         "run_id": pa.array([rid] * len(k_day), pa.string()), "as_of": pa.array(k_day, pa.date32()),
         "instrument": pa.array(k_inst.tolist(), pa.string()), "series": pa.array(k_series.tolist(), pa.string()),
-        "file": pa.array([file_of[s] for s in k_series], pa.string()),
+        "file": pa.array(files.tolist(), pa.string()),
         **{k: pa.array(used[k], pa.date32()) for k in ("first_date", "last_date")},
         "n_rows": pa.array(used["n_rows"], pa.int64()), "n_filled": pa.array(used["n_filled"], pa.int64()),
         **{k: pa.array(used[k], pa.date32()) for k in ("window_first", "window_last")},
