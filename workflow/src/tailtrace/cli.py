@@ -90,6 +90,15 @@ def _figure_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--horizon", required=True, type=int, help="horizon in days, e.g. 10")
 
 
+def _reader(sub: argparse._SubParsersAction, name: str, func, help: str) -> argparse.ArgumentParser:
+    """A subcommand reading the risk database: --db and --json."""
+    p = sub.add_parser(name, help=help)
+    p.add_argument("--db", default=DEFAULT_DB, help=f"risk database (default: {DEFAULT_DB})")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(func=func)
+    return p
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="tailtrace", description="End-of-day VaR and ES with provenance.")
     sub = parser.add_subparsers(dest="command", required=True)
@@ -101,47 +110,32 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("snakemake_args", nargs=argparse.REMAINDER, help="after --: passed to Snakemake unchanged")
     run.set_defaults(func=_cmd_run)
 
-    trace = sub.add_parser("trace", help="lineage of one figure: steps, input files and rows, parameters, code")
-    trace.add_argument("--db", default=DEFAULT_DB, help=f"risk database (default: {DEFAULT_DB})")
+    trace = _reader(sub, "trace", _cmd_trace, "lineage of one figure: steps, input files and rows, parameters, code")
     trace.add_argument("--as-of", required=True, help="YYYY-MM-DD")
     _figure_options(trace)
     trace.add_argument("--run-id", default=None, help="trace the figure as this run made it (default: the stored one)")
-    trace.add_argument("--json", action="store_true", help="machine-readable output")
-    trace.set_defaults(func=_cmd_trace)
 
-    verify = sub.add_parser("verify", help="re-hash a run's files: changed, missing, new (exit 1 if any)")
-    verify.add_argument("--db", default=DEFAULT_DB, help=f"risk database (default: {DEFAULT_DB})")
+    verify = _reader(sub, "verify", _cmd_verify, "re-hash a run's files: changed, missing, new (exit 1 if any)")
     verify.add_argument("--run-id", default=None, help="run to check (default: the latest)")
-    verify.add_argument("--json", action="store_true", help="machine-readable output")
-    verify.set_defaults(func=_cmd_verify)
 
-    repro = sub.add_parser("reproduce", help="rebuild a run in a temporary folder; compare figures bit for bit "
-                                             "(exit 1 if any differs)")
-    repro.add_argument("--db", default=DEFAULT_DB, help=f"risk database (default: {DEFAULT_DB})")
+    repro = _reader(sub, "reproduce", _cmd_reproduce,
+                    "rebuild a run in a temporary folder; compare figures bit for bit (exit 1 if any differs)")
     repro.add_argument("--run-id", default=None, help="run to rebuild (default: the latest)")
     repro.add_argument("--inputs", choices=("archive", "live"), default="archive",
                        help="archive: the recorded input bytes (default); live: the input files as they are now")
     repro.add_argument("--cores", type=int, default=2, help="cores for Snakemake (default: 2)")
     repro.add_argument("--keep", action="store_true", help="keep the rebuild folder")
     repro.add_argument("--workdir", default=None, help="rebuild in this folder (default: a new temporary one)")
-    repro.add_argument("--json", action="store_true", help="machine-readable output")
-    repro.set_defaults(func=_cmd_reproduce)
 
-    explain = sub.add_parser("explain", help="attribute a figure's change between two as_of dates to positions, "
-                                             "market window, parameters and code")
-    explain.add_argument("--db", default=DEFAULT_DB, help=f"risk database (default: {DEFAULT_DB})")
+    explain = _reader(sub, "explain", _cmd_explain, "attribute a figure's change between two as_of dates to "
+                                                    "positions, market window, parameters and code")
     explain.add_argument("--as-of-from", required=True, help="earlier as_of, YYYY-MM-DD")
     explain.add_argument("--as-of-to", required=True, help="later as_of, YYYY-MM-DD")
     _figure_options(explain)
     explain.add_argument("--run-from", default=None, help="run of the earlier figure (default: the stored one)")
     explain.add_argument("--run-to", default=None, help="run of the later figure (default: the stored one)")
-    explain.add_argument("--json", action="store_true", help="machine-readable output")
-    explain.set_defaults(func=_cmd_explain)
 
-    runs = sub.add_parser("runs", help="list the recorded runs")
-    runs.add_argument("--db", default=DEFAULT_DB, help=f"risk database (default: {DEFAULT_DB})")
-    runs.add_argument("--json", action="store_true", help="machine-readable output")
-    runs.set_defaults(func=_cmd_runs)
+    _reader(sub, "runs", _cmd_runs, "list the recorded runs")
     return parser
 
 

@@ -116,7 +116,8 @@ def verify_run(db_path: str | Path, run_id: str | None = None) -> VerifyReport:
     used = {run.resolve(p).resolve() for p in raw}
     for p in data_folder_files(run):
         if p.resolve() not in used:
-            checks.append(FileCheck(str(p), RAW, "new", None, sha256_file(p)))
+            shown = p.relative_to(run.workdir) if p.is_relative_to(run.workdir) else p  # like the recorded paths
+            checks.append(FileCheck(str(shown), RAW, "new", None, sha256_file(p)))
     return VerifyReport(run.run_id, run.recorded_at, tuple(checks))
 
 
