@@ -23,6 +23,7 @@ import pyarrow.parquet as pq
 from .database import open_read_only
 from .errors import InputError, TailtraceError
 from .hashing import sha256_file
+from .lineage import figure_run_id
 from .market import MarketData
 from .recorded import FigureKey, RecordedRun, fetch_dicts, figure_of_run, load_run
 
@@ -335,8 +336,6 @@ def explain_change(db_path: str | Path, key_from: FigureKey, key_to: FigureKey, 
     analysis; the result depends on the ordering, which is stated with it.
     """
     with open_read_only(db_path) as con:
-        from .lineage import figure_run_id
-
         runs, states, stored = [], [], []
         for key, rid in ((key_from, run_from), (key_to, run_to)):
             run = load_run(con, db_path, rid or figure_run_id(con, key))

@@ -131,22 +131,7 @@ def trace_figure(db_path: str | Path, key: FigureKey, *, run_id: str | None = No
 
     positions_file = positions[0]["file"]
     price_files = {w["file"] for w in window_rows}
-    instruments_step = run.step("ingest_instruments")
-    instruments_file = instruments_step.inputs_named("instruments")[0]
-    inputs = [_input_view("instruments", instruments_file.path, instruments_file.sha256, files,
-                          {"instruments": held, "fx_series": sorted({w["series"] for w in window_rows} - set(held))})]
-    positions_entry = next((e for e in run.step("ingest_positions").inputs_named("positions") if e.path == positions_file),
-                           None)
-    if positions_entry is None:
-        raise TailtraceError(f"run {rid}: positions file {positions_file} is not among the recorded inputs")
-    inputs.append(_input_view("positions", positions_file, positions_entry.sha256, files,
-                              {"rows": [p["row"] for p in positions]}))
-    for path in sorted(price_files):
-        step = next(s for s in run.steps if s.rule == "ingest_prices" and s.inputs_named("prices")[0].path == path)
-        used = [{k: w[k] for k in ("series", "instrument", "first_date", "last_date", "n_rows", "n_filled")}
-                for w in window_rows if w["file"] == path]
-        inputs.append(_input_view("prices", path, step.inputs_named("prices")[0].sha256, files, {"series": used}))
-
+    inputs = _feeding_inputs(run, positions, window_rows, files)
     steps = _relevant_steps(run, key.method, price_files, positions_file)
     keep = {i["path"] for i in inputs} | {e.path for s in steps for e in s.outputs}
     chain = [_step_view(s, keep) for s in steps]
@@ -170,8 +155,8 @@ def trace_figure(db_path: str | Path, key: FigureKey, *, run_id: str | None = No
         "inputs": inputs,
         "positions": positions,
         "window": window,
-        "parameters": {s.rule: {k: v for k, v in s.params.items() if k != "code"} for s in steps
-                       if s.rule in ("build_returns", "build_scenarios", estimate.rule, "ingest_prices")},
+        "parameters": {label: p for label, p in ((s.label, {k: v for k, v in s.params.items() if k != "code"})
+                                                 for s in steps) if p},
         "code": {"git_commit": run.git_commit, "git_dirty": run.git_dirty,
                  "package_source": run.packages.get("tailtrace.source"),
                  "package_version": run.packages.get("tailtrace"),
@@ -181,6 +166,26 @@ def trace_figure(db_path: str | Path, key: FigureKey, *, run_id: str | None = No
                      "archive": files.get(figure_entry.path, {}).get("archive")},
                     {"kind": "database", "path": str(db_path), "table": "risk_figures", "run_id": run.run_id}],
     }
+
+
+def _feeding_inputs(run: RecordedRun, positions: list[dict[str, Any]], window_rows: list[dict[str, Any]],
+                    files: Mapping[str, Mapping[str, Any]]) -> list[dict[str, Any]]:
+    """The raw files a figure reads: instruments, its positions file, the price files of its series."""
+    held = sorted({p["instrument"] for p in positions})
+    entry = run.step("ingest_instruments").inputs_named("instruments")[0]
+    inputs = [_input_view("instruments", entry.path, entry.sha256, files,
+                          {"instruments": held, "fx_series": sorted({w["series"] for w in window_rows} - set(held))})]
+    positions_file = positions[0]["file"]
+    entry = next((e for e in run.step("ingest_positions").inputs_named("positions") if e.path == positions_file), None)
+    if entry is None:
+        raise TailtraceError(f"run {run.run_id}: positions file {positions_file} is not among the recorded inputs")
+    inputs.append(_input_view("positions", positions_file, entry.sha256, files, {"rows": [p["row"] for p in positions]}))
+    for path in sorted({w["file"] for w in window_rows}):
+        entry = next(e for s in run.steps if s.rule == "ingest_prices" for e in s.inputs_named("prices") if e.path == path)
+        used = [{k: w[k] for k in ("series", "instrument", "first_date", "last_date", "n_rows", "n_filled")}
+                for w in window_rows if w["file"] == path]
+        inputs.append(_input_view("prices", path, entry.sha256, files, {"series": used}))
+    return inputs
 
 
 def _input_view(kind: str, path: str, sha256: str, files: Mapping[str, Mapping[str, Any]],

@@ -213,7 +213,6 @@ def _rebuild_and_compare(run: RecordedRun, stored: pa.Table, root: Path, inputs:
     with open_read_only(db / "risk.duckdb") as con:
         rebuilt_run = load_run(con, db / "risk.duckdb")
         rebuilt_rows = con.sql("SELECT * FROM risk_figures").to_arrow_table()
-    rebuilt_run = RecordedRun(**{**rebuilt_run.__dict__, "workdir": root})
 
     differences: list[Difference] = []
     files, notes = [], []

@@ -8,6 +8,7 @@ Parquet caches have been rebuilt by later runs.
 from __future__ import annotations
 
 import json
+import logging
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
@@ -23,8 +24,11 @@ from .market import MarketData
 from .recorded import FileEntry, StepRecord, raw_inputs
 from .reference import fx_instrument
 
+log = logging.getLogger("tailtrace")
+
 __all__ = [
     "LINEAGE_MODES",
+    "SPINE_STEPS",
     "INPUT_FILES_SCHEMA",
     "WINDOW_INPUTS_SCHEMA",
     "input_kind",
@@ -49,6 +53,7 @@ WINDOW_INPUTS_SCHEMA = pa.schema([
     ("n_filled", pa.int64()), ("window_first", pa.date32()), ("window_last", pa.date32()), ("n_obs", pa.int64()),
 ])
 
+SPINE_STEPS = ("ingest_instruments", "ingest_positions", "build_returns", "build_scenarios")
 _KINDS = {"ingest_instruments": "instruments", "ingest_positions": "positions", "ingest_prices": "prices"}
 
 
@@ -192,10 +197,15 @@ def lineage_tables(records: Sequence[Mapping[str, Any]], rid: str, *, archive_di
             table = _read_checked(s.output("prices"), ["date", "instrument"])
             price_rows[raw.path] = table
             file_of.update({i: raw.path for i in pc.unique(table.column("instrument")).to_pylist()})
-    exposures = _read_checked(_one(steps, "build_scenarios").output("exposures"))
-    sources = _read_checked(_one(steps, "ingest_positions").output("positions"), ["source"]).column("source").to_pylist()
-    n_instruments = _read_checked(_one(steps, "ingest_instruments").output("instruments"), ["instrument"]).num_rows
-    count = {"instruments": lambda path: n_instruments, "positions": sources.count}
+    missing = sorted(set(SPINE_STEPS) - {s.rule for s in steps})
+    if missing:  # e.g. an aggregate fed hand-made records; the figures are still written
+        log.warning("no step record of %s: positions_used and window_inputs not written", ", ".join(missing))
+        count = {}
+    else:
+        exposures = _read_checked(_one(steps, "build_scenarios").output("exposures"))
+        sources = _read_checked(_one(steps, "ingest_positions").output("positions"), ["source"]).column("source")
+        n_instruments = _read_checked(_one(steps, "ingest_instruments").output("instruments"), ["instrument"]).num_rows
+        count = {"instruments": lambda path: n_instruments, "positions": sources.to_pylist().count}
 
     files = [(s, e, input_kind(s.rule)) for s, e in raw_inputs(steps)]
     files += [(s, s.output("figures"), "figures") for s in steps if s.rule.startswith("estimate_")]
@@ -206,8 +216,8 @@ def lineage_tables(records: Sequence[Mapping[str, Any]], rid: str, *, archive_di
                      "path": e.path, "sha256": e.sha256, "bytes": archived.stat().st_size if archived else None,
                      **_file_info(kind, price_rows.get(e.path), count[kind](e.path) if kind in count else None),
                      "archive": str(archived) if archived else None, "archive_note": note})
-    return {
-        "input_files": pa.Table.from_pylist(rows, schema=INPUT_FILES_SCHEMA),
-        "positions_used": exposures.append_column("run_id", pa.array([rid] * exposures.num_rows, pa.string())),
-        "window_inputs": _window_table(steps, rid, exposures, file_of),
-    }
+    tables = {"input_files": pa.Table.from_pylist(rows, schema=INPUT_FILES_SCHEMA)}
+    if not missing:
+        tables["positions_used"] = exposures.append_column("run_id", pa.array([rid] * exposures.num_rows, pa.string()))
+        tables["window_inputs"] = _window_table(steps, rid, exposures, file_of)
+    return tables
