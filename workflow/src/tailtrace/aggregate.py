@@ -11,11 +11,13 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
+from .archive import archive_dir_for
 from .database import write_database
 from .errors import TailtraceError
 from .figures import FIGURE_SCHEMA
 from .ingest import QUALITY_SCHEMA
 from .provenance import git_state, package_versions, read_records, run_id
+from .usage import LINEAGE_MODES, lineage_tables
 
 __all__ = ["FIGURE_KEY", "EXTRA_TABLES", "aggregate", "provenance_rows"]
 
@@ -90,7 +92,7 @@ def aggregate(
     quality = _concat(quality_files, QUALITY_SCHEMA)
     quality = quality.append_column("run_id", pa.array([rid] * quality.num_rows, pa.string()))
     as_of_dates = sorted({d.isoformat() for d in pc.unique(figures.column("as_of")).to_pylist()})
-    git = git_state(workdir)
+    git = git_state(Path(__file__).resolve().parent)  # the checkout holding the code, not the working folder
     runs = pa.Table.from_pylist([{
         "run_id": rid, "recorded_at": recorded_at, "as_of_dates": json.dumps(as_of_dates),
         "config": json.dumps(config_snapshot, sort_keys=True), "git_commit": git["commit"], "git_dirty": git["dirty"],
@@ -106,6 +108,7 @@ def aggregate(
         if paths:
             t = _concat(paths)
             tables[name] = t.append_column("run_id", pa.array([rid] * t.num_rows, pa.string())) if "run_id" not in t.column_names else t
-    write_database(db_path, tables, keys={"risk_figures": FIGURE_KEY})
+    tables.update(lineage_tables(records, rid, archive_dir=archive_dir_for(db_path)))
+    write_database(db_path, tables, keys={"risk_figures": FIGURE_KEY}, modes=LINEAGE_MODES)
     return {"run_id": rid, "recorded_at": recorded_at, "as_of": as_of_dates, "database": str(db_path),
             "rows": {k: v.num_rows for k, v in tables.items()}, "git": git}

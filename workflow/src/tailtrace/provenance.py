@@ -13,10 +13,11 @@ from importlib import metadata
 from pathlib import Path
 from typing import Any, Iterator, Mapping
 
-from .hashing import sha256_file, sha256_text
+from .hashing import sha256_file, sha256_text, source_hash
 
 __all__ = [
     "PACKAGES",
+    "package_source_hash",
     "package_versions",
     "git_state",
     "file_entries",
@@ -29,6 +30,14 @@ __all__ = [
 PACKAGES = ("tailtrace", "numpy", "scipy", "pandas", "pyarrow", "duckdb", "snakemake", "arch", "matplotlib")
 
 
+def package_source_hash() -> str:
+    """Hash of every module of the installed tailtrace package.
+
+    The version number alone does not change between commits; this does.
+    """
+    return source_hash(Path(__file__).resolve().parent.rglob("*.py"))
+
+
 def package_versions() -> dict[str, str]:
     out = {"python": sys.version.split()[0]}
     for name in PACKAGES:
@@ -36,6 +45,7 @@ def package_versions() -> dict[str, str]:
             out[name] = metadata.version(name)
         except metadata.PackageNotFoundError:
             out[name] = "not installed"
+    out["tailtrace.source"] = package_source_hash()
     return out
 
 
