@@ -223,7 +223,8 @@ def format_trace(t: Mapping[str, Any]) -> str:
         lines.append(f"  {'':<11} sha256 {i['sha256']}  {i['bytes']} bytes  "
                      f"{'archived ' + i['archive'] if i['archive'] else i['archive_note'] or 'not archived'}")
         for s in i["used"].get("series", []):
-            role = "" if s["series"] == s["instrument"] else f" (FX of {s['instrument']})"
+            kind = "FX" if str(s["series"]).startswith("FX.") else "underlying"
+            role = "" if s["series"] == s["instrument"] else f" ({kind} of {s['instrument']})"
             lines.append(f"  {'':<11} {s['series']}{role}: rows {s['first_date']} .. {s['last_date']} "
                          f"({s['n_rows']} closes, {s['n_filled']} date(s) carried forward)")
         if i["kind"] == "positions":

@@ -126,7 +126,7 @@ def window_usage(market: MarketData, as_of_dates: np.ndarray, window_days: int,
 def _window_table(steps: Sequence[StepRecord], rid: str, exposures: pa.Table, file_of: Mapping[str, str]) -> pa.Table:
     returns_step, scen_step = _one(steps, "build_returns"), _one(steps, "build_scenarios")
     observed = _read_checked(returns_step.output("observed"))
-    instruments = _read_checked(_one(steps, "ingest_instruments").output("instruments"), ["instrument", "currency"])
+    instruments = _read_checked(_one(steps, "ingest_instruments").output("instruments"))
     base_ccy = str(returns_step.params["base_currency"])
     window = int(scen_step.params["window_days"])
     names = observed.column_names[1:]
@@ -139,13 +139,19 @@ def _window_table(steps: Sequence[StepRecord], rid: str, exposures: pa.Table, fi
                                                                            ("instrument", "ascending")])
     day = pairs.column("as_of").to_numpy().astype("datetime64[D]")
     names_u, inv = np.unique(np.asarray(pairs.column("instrument").to_pylist(), dtype=object), return_inverse=True)
-    # each held instrument reads its own series and, if quoted in another currency, its FX series
+    # each held instrument reads its own series (an option: its underlying's) and, if quoted in
+    # another currency, its FX series
+    under = {}
+    if "underlying" in instruments.column_names:
+        under = {i: u for i, u in zip(instruments.column("instrument").to_pylist(),
+                                      instruments.column("underlying").to_pylist()) if u}
+    own_u = np.array([under.get(i, i) for i in names_u], dtype=object)
     fx_u = np.array([fx_instrument(ccy[i]) if ccy[i] != base_ccy else "" for i in names_u], dtype=object)
     column = {n: j for j, n in enumerate(market.instruments)}
     has_fx = fx_u[inv] != ""
     k_day = np.concatenate([day, day[has_fx]])
     k_inst = np.concatenate([names_u[inv], names_u[inv][has_fx]])
-    k_series = np.concatenate([names_u[inv], fx_u[inv][has_fx]])
+    k_series = np.concatenate([own_u[inv], fx_u[inv][has_fx]])
     series_u, series_inv = np.unique(k_series, return_inverse=True)
     col = np.array([column[x] for x in series_u], dtype=np.int64)[series_inv]
     used = window_usage(market, k_day, window, col)
