@@ -148,6 +148,18 @@ def holdings_from_exposures(exposures: pa.Table, as_of: np.datetime64) -> tuple[
     return tuple(map(str, portfolios)), tuple(map(str, instruments)), values, part
 
 
+def _missing_cause(market: MarketData, col: int, t: int) -> str:
+    """Why the return on row ``t`` of column ``col`` is missing, as far as the data tells."""
+    generic = "it has too little history or a gap longer than the fill limit"
+    if market.base is None or market.local is None:
+        return generic
+    r = t if np.isnan(market.base[t, col]) else t - 1
+    if np.isnan(market.local[r, col]):
+        return generic
+    return (f"its own close is there on {market.dates[r]} but the FX rate converting it to the base currency is "
+            "missing (a gap longer than the fill limit, or the FX series starts later)")
+
+
 def build_sample(market: MarketData, exposures: pa.Table, as_of: np.datetime64, window: int) -> RiskSample:
     """The estimation sample of one as_of (window returns, holdings, P&L).
 
@@ -164,11 +176,12 @@ def build_sample(market: MarketData, exposures: pa.Table, as_of: np.datetime64, 
     bad = ~np.isfinite(returns)
     if bad.any():
         j = int(np.flatnonzero(bad.any(axis=0))[0])
-        first_bad = market.dates[idx[np.flatnonzero(bad[:, j])[0]]]
+        t = int(idx[np.flatnonzero(bad[:, j])[0]])
+        first_bad = market.dates[t]
         rows = part.filter(pc.equal(part.column("instrument"), instruments[j]))
         raise InputError(
             f"instrument lacks prices inside the {window}-day window ending {as_of} (first missing return {first_bad}); "
-            "it has too little history or a gap longer than the fill limit",
+            f"{_missing_cause(market, cols[j], t)}",
             file=str(rows.column("positions_file")[0]), row=int(rows.column("positions_row")[0].as_py()),
             column="instrument", value=instruments[j])
     end = int(idx[-1]) + 1
