@@ -26,6 +26,7 @@ __all__ = ["CsvTable", "read_csv_strict", "parse_dates", "parse_numbers", "requi
 
 _NUMBER = r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$"
 _ISO_DATE = r"^\d{4}-\d{2}-\d{2}$"
+EARLIEST_DATE = np.datetime64("1800-01-01")  # older years are typos (and beyond Python's date range at 0000)
 
 
 @dataclass(frozen=True)
@@ -222,7 +223,9 @@ def parse_dates(table: CsvTable, column: str) -> np.ndarray:
     same = pc.equal(pc.strftime(parsed, format="%Y-%m-%d"), arr)
     valid = np.asarray(pc.fill_null(same, False).to_numpy(zero_copy_only=False), dtype=bool)
     _first_bad(table, column, ~(shaped & valid), "not a valid ISO 8601 date; expected YYYY-MM-DD")
-    return parsed.to_numpy(zero_copy_only=False).astype("datetime64[D]")
+    days = parsed.to_numpy(zero_copy_only=False).astype("datetime64[D]")
+    _first_bad(table, column, days < EARLIEST_DATE, f"date before {EARLIEST_DATE}; a typo in the year?")
+    return days
 
 
 def parse_numbers(table: CsvTable, column: str, *, positive: bool = False) -> np.ndarray:

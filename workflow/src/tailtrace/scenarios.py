@@ -150,14 +150,17 @@ def holdings_from_exposures(exposures: pa.Table, as_of: np.datetime64) -> tuple[
 
 def _missing_cause(market: MarketData, col: int, t: int) -> str:
     """Why the return on row ``t`` of column ``col`` is missing, as far as the data tells."""
-    generic = "it has too little history or a gap longer than the fill limit"
-    if market.base is None or market.local is None:
-        return generic
+    if market.base is None or market.local is None or market.observed is None:
+        return "it has too little history or a gap longer than the fill limit"
     r = t if np.isnan(market.base[t, col]) else t - 1
-    if np.isnan(market.local[r, col]):
-        return generic
-    return (f"its own close is there on {market.dates[r]} but the FX rate converting it to the base currency is "
-            "missing (a gap longer than the fill limit, or the FX series starts later)")
+    if not np.isnan(market.local[r, col]):
+        return (f"its own close is there on {market.dates[r]} but the FX rate converting it to the base currency is "
+                "missing (a gap longer than the fill limit, or the FX series starts later)")
+    seen = np.flatnonzero(market.observed[:, col])
+    if seen.size == 0 or seen[0] > r:
+        first = market.dates[seen[0]] if seen.size else "never"
+        return f"its first price is on {first}: too little history for the window"
+    return f"no close on {market.dates[r]}: a gap longer than the fill limit (returns.max_fill_days)"
 
 
 def build_sample(market: MarketData, exposures: pa.Table, as_of: np.datetime64, window: int) -> RiskSample:
