@@ -65,6 +65,12 @@ class Runs:
     def db(self) -> Path:
         return self.results / "risk.duckdb"
 
+    def heal(self) -> None:
+        """After a killed run: ``tailtrace run`` clears the stale lock and redoes the incomplete step."""
+        proc = run_tailtrace(self.data, self.results, self.workdir)
+        assert proc.returncode == 0, output_of(proc)[-3000:]
+        assert read_figures(self.db) == self.snaps["cores1_threads1"].figures
+
 
 @pytest.fixture(scope="module")
 def runs(tmp_path_factory) -> Runs:
@@ -176,6 +182,31 @@ def test_a_second_run_is_refused_while_one_is_running(runs):
     finally:
         kill_group(first)
     assert runs.db.read_bytes() == db_bytes
+    runs.heal()
+
+
+def test_raw_snakemake_runs_collide_and_tailtrace_leaves_a_live_one_alone(runs):
+    """Two raw runs hit Snakemake's lock; ``tailtrace run`` (no flock to find) must not clear a live run's lock."""
+    db_bytes = runs.db.read_bytes()
+    log = runs.results / "logs" / "aggregate.log"
+    pauses = text_of(log).count("test hook")
+    first = subprocess.Popen(raw_snakemake(runs), env=pipeline_env(TAILTRACE_TEST_PAUSE_AGGREGATE="120"),
+                             cwd=runs.workdir, start_new_session=True, stdout=subprocess.DEVNULL,
+                             stderr=subprocess.DEVNULL)
+    try:
+        wait_for(lambda: text_of(log).count("test hook") > pauses, first, "the raw run to reach its aggregate step")
+        raw = subprocess.run(raw_snakemake(runs), env=pipeline_env(), cwd=runs.workdir, capture_output=True, text=True,
+                             timeout=300)
+        assert raw.returncode != 0
+        assert "Directory cannot be locked" in output_of(raw)
+        ours = run_tailtrace(runs.data, runs.results, runs.workdir)
+        assert ours.returncode != 0
+        assert "Directory cannot be locked" in output_of(ours)
+        assert "removing" not in ours.stderr
+    finally:
+        kill_group(first)
+    assert runs.db.read_bytes() == db_bytes
+    runs.heal()
 
 
 def test_reader_keeps_its_snapshot_while_the_pipeline_replaces_the_database(runs):

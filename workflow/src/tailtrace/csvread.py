@@ -95,12 +95,12 @@ def _locate_bad_row(path: Path, lines: Sequence[str], header: Sequence[str]) -> 
             fields = next(csv.reader([line], strict=True))
         except csv.Error as exc:
             raise InputError(f"malformed quoting: {exc}", file=str(path), row=number, column=header[0], value=line[:80]) from None
+        count = f"{len(fields)} field{'' if len(fields) == 1 else 's'} where the header has {n_fields}"
         if len(fields) < n_fields:
-            raise InputError(f"{len(fields)} fields where the header has {n_fields}; value missing",
-                             file=str(path), row=number, column=header[len(fields)], value=line[:80])
+            raise InputError(f"{count}; value missing", file=str(path), row=number, column=header[len(fields)],
+                             value=line[:80])
         if len(fields) > n_fields:
-            raise InputError(f"{len(fields)} fields where the header has {n_fields} (an unquoted comma, "
-                             "e.g. a thousands separator or a decimal comma?)",
+            raise InputError(f"{count} (an unquoted comma, e.g. a thousands separator or a decimal comma?)",
                              file=str(path), row=number, column=header[-1], value=line[:80])
 
 

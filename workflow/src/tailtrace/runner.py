@@ -12,8 +12,8 @@ from typing import Iterator, Sequence
 
 from .errors import TailtraceError
 
-__all__ = ["REPO_ROOT", "results_lock", "snakemake_command", "snakemake_workdir", "stale_snakemake_locks", "run_pipeline",
-           "LockHeld"]
+__all__ = ["REPO_ROOT", "results_lock", "snakemake_command", "snakemake_workdir", "snakemake_processes",
+           "stale_snakemake_locks", "run_pipeline", "LockHeld"]
 
 REPO_ROOT = Path(__file__).resolve().parents[3]
 LOCK_NAME = ".tailtrace.lock"
@@ -73,19 +73,48 @@ def snakemake_workdir(extra: Sequence[str]) -> Path:
     return REPO_ROOT
 
 
+def snakemake_processes(workdir: str | Path) -> list[int]:
+    """Pids of live processes working in ``workdir`` whose command line mentions snakemake.
+
+    Linux only (reads /proc); elsewhere the answer is unknown and every
+    process is assumed to be live (see :func:`stale_snakemake_locks`).
+    """
+    proc = Path("/proc")
+    if not proc.is_dir():
+        return [-1]
+    target = Path(workdir).resolve()
+    found = []
+    for entry in proc.iterdir():
+        if not entry.name.isdigit() or int(entry.name) == os.getpid():
+            continue
+        try:
+            if Path(os.readlink(entry / "cwd")).resolve() != target:
+                continue
+            argv = (entry / "cmdline").read_bytes().split(b"\0")
+        except OSError:  # gone, a zombie, or not ours to inspect
+            continue
+        if any(b"snakemake" in arg for arg in argv):
+            found.append(int(entry.name))
+    return sorted(found)
+
+
 def stale_snakemake_locks(workdir: str | Path, results_dir: str | Path) -> list[Path]:
-    """Snakemake lock files in ``workdir`` that name a file inside ``results_dir``.
+    """Snakemake lock files in ``workdir`` naming a file inside ``results_dir``, if no Snakemake is alive there.
 
     Snakemake writes ``.snakemake/locks/<n>.input.lock`` and
     ``<n>.output.lock`` (one path per line) and deletes them on exit; a run
     killed with SIGKILL leaves them, and every later run then stops with
-    "Directory cannot be locked". Called while holding :func:`results_lock`,
-    such files cannot belong to a live ``tailtrace run``.
+    "Directory cannot be locked". Locks are reported stale only when no live
+    process in ``workdir`` mentions snakemake (a raw ``snakemake`` run started
+    outside tailtrace keeps its locks, and Snakemake refuses the new run).
     """
     workdir = Path(workdir)
+    lockdir = workdir / ".snakemake" / "locks"
+    if not lockdir.is_dir() or snakemake_processes(workdir):
+        return []
     results = (workdir / results_dir).resolve()
     stale = []
-    for lock in sorted((workdir / ".snakemake" / "locks").glob("*.lock")):
+    for lock in sorted(lockdir.glob("*.lock")):
         try:
             named = [(workdir / line.strip()).resolve() for line in lock.read_text().splitlines() if line.strip()]
         except (OSError, UnicodeDecodeError):
@@ -109,6 +138,6 @@ def run_pipeline(*, results_dir: str, data_dir: str | None, cores: int, extra: S
     with results_lock(workdir / results_dir):
         for lock in stale_snakemake_locks(workdir, results_dir):
             print(f"tailtrace: removing {lock}, left by a Snakemake run that was killed "
-                  "(no tailtrace run holds this results folder)", file=sys.stderr)
+                  "(no Snakemake process is running in its folder)", file=sys.stderr)
             lock.unlink(missing_ok=True)
         return subprocess.call(cmd, cwd=str(REPO_ROOT))
