@@ -486,6 +486,7 @@ def good(tmp_path_factory) -> GoodBuild:
     return GoodBuild(root, data, db, sha256(db), workdir)
 
 
+@pytest.mark.slow
 def test_good_build_recorded_the_extra_column_as_a_warning(good):
     from tailtrace.database import open_read_only
 
@@ -518,6 +519,7 @@ def test_rejected_by_the_pipeline_leaves_the_database_untouched(case, good, tmp_
 
 # --------------------------------------------------------------------------- hostile configuration and data
 
+@pytest.mark.slow
 def test_outside_paths_are_refused_unless_allowed(good, tmp_path):
     """An absolute path outside data_dir plans only with allow_outside_paths: true (dry runs)."""
     elsewhere = tmp_path / "elsewhere.csv"
