@@ -7,7 +7,9 @@ something is already wrong.
 
 from __future__ import annotations
 
+import csv
 import io
+import re
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -24,6 +26,7 @@ __all__ = ["CsvTable", "read_csv_strict", "parse_dates", "parse_numbers", "requi
 
 _NUMBER = r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$"
 _ISO_DATE = r"^\d{4}-\d{2}-\d{2}$"
+EARLIEST_DATE = np.datetime64("1800-01-01")  # older years are typos (and beyond Python's date range at 0000)
 
 
 @dataclass(frozen=True)
@@ -43,25 +46,62 @@ class CsvTable:
         return index + 2
 
 
+_LINE_BREAK = re.compile(r"\r\n|\r|\n")
+
+
+def _split_lines(text: str) -> list[str]:
+    """Physical lines as pyarrow sees them (\\n, \\r\\n or \\r); trailing blank lines dropped."""
+    lines = _LINE_BREAK.split(text)
+    while lines and not lines[-1].strip():
+        lines.pop()
+    return lines
+
+
+def _fields(line: str) -> list[str]:
+    return next(csv.reader([line]), [])
+
+
 def _decode(path: Path, raw: bytes) -> str:
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
-        line = raw[: exc.start].count(b"\n") + 1
+        before = raw[: exc.start]
+        line = len(re.findall(rb"\r\n|\r|\n", before)) + 1
+        line_start = max(before.rfind(b"\n"), before.rfind(b"\r")) + 1
+        index = before[line_start:].count(b",")
+        header = _fields(_LINE_BREAK.split(raw.decode("utf-8", "replace").lstrip("\ufeff"), maxsplit=1)[0])
+        column = header[index].strip() if index < len(header) else None
         raise InputError(
-            "file is not valid UTF-8 text; save it as UTF-8", file=str(path), row=line, value=raw[exc.start : exc.start + 4]
+            "file is not valid UTF-8 text; save it as UTF-8", file=str(path), row=line, column=column,
+            value=raw[exc.start : exc.start + 4],
         ) from None
     return text.lstrip("\ufeff")
 
 
-def _locate_bad_row(path: Path, text: str, n_fields: int) -> None:
-    for number, line in enumerate(text.splitlines(), start=1):
-        if number == 1:
-            continue
-        fields = line.count(",") + 1 if line else 0
-        if fields != n_fields:
-            what = "blank line" if not line.strip() else f"{fields} fields where the header has {n_fields}"
-            raise InputError(f"malformed row: {what}", file=str(path), row=number, value=line[:80])
+def _locate_bad_row(path: Path, lines: Sequence[str], header: Sequence[str]) -> None:
+    """Find the first data line that breaks the table's shape and raise for it.
+
+    Values may not contain line breaks, so each physical line must parse on
+    its own into exactly one field per header column.
+    """
+    n_fields = len(header)
+    for number, line in enumerate(lines[1:], start=2):
+        if not line.strip():
+            raise InputError("blank line inside the data; remove it", file=str(path), row=number, column=header[0])
+        if line.count('"') % 2:
+            raise InputError("unbalanced double quote (values may not span lines)", file=str(path), row=number,
+                             column=header[min(line[: line.index('"')].count(","), n_fields - 1)], value=line[:80])
+        try:
+            fields = next(csv.reader([line], strict=True))
+        except csv.Error as exc:
+            raise InputError(f"malformed quoting: {exc}", file=str(path), row=number, column=header[0], value=line[:80]) from None
+        count = f"{len(fields)} field{'' if len(fields) == 1 else 's'} where the header has {n_fields}"
+        if len(fields) < n_fields:
+            raise InputError(f"{count}; value missing", file=str(path), row=number, column=header[len(fields)],
+                             value=line[:80])
+        if len(fields) > n_fields:
+            raise InputError(f"{count} (an unquoted comma, e.g. a thousands separator or a decimal comma?)",
+                             file=str(path), row=number, column=header[-1], value=line[:80])
 
 
 def read_csv_strict(
@@ -89,7 +129,13 @@ def read_csv_strict(
     Raises
     ------
     InputError
-        Empty file, non-UTF-8 bytes, missing columns, ragged rows, too few rows.
+        Empty file, non-UTF-8 bytes, missing columns, ragged rows, blank or
+        badly quoted lines, too few rows.
+
+    Notes
+    -----
+    A UTF-8 byte-order mark, quoted header names, ``\\r\\n`` line ends and
+    trailing blank lines are accepted.
     """
     path = Path(path)
     name = str(path)
@@ -98,15 +144,22 @@ def read_csv_strict(
     except FileNotFoundError:
         raise InputError("file not found", file=name) from None
     text = _decode(path, raw)
-    if not text.strip():
-        raise InputError("file is empty; expected a header row and data rows", file=name, row=1)
-    header_line = text.splitlines()[0]
-    header = [h.strip() for h in header_line.split(",")]
+    lines = _split_lines(text)
+    if not lines:
+        raise InputError(f"file is empty; expected a header row {','.join(required)} and data rows", file=name, row=1,
+                         column=required[0])
+    header_line = lines[0]
+    try:
+        header = [h.strip() for h in next(csv.reader([header_line], strict=True))]
+    except csv.Error as exc:
+        raise InputError(f"malformed header: {exc}", file=name, row=1, column=required[0], value=header_line[:80]) from None
     missing = [c for c in required if c not in header]
     if missing:
         hint = ""
         if len(header) == 1 and any(d in header_line for d in ";\t|"):
             hint = "; the file seems to use another delimiter than a comma"
+        elif any(h.lower() == missing[0] for h in header):
+            hint = "; column names are lower case"
         raise InputError(
             f"missing required column(s) {', '.join(missing)}; header must contain {', '.join(required)}{hint}",
             file=name,
@@ -121,22 +174,27 @@ def read_csv_strict(
     if extra and not allow_extra:
         raise InputError("unknown column", file=name, row=1, column=extra[0])
     if extra:
-        warnings.warn(f"{name}: ignoring unknown column(s) {', '.join(extra)}", DataQualityWarning, stacklevel=2)
+        warnings.warn(f"{name}: ignoring unknown column(s) {', '.join(map(repr, extra))}", DataQualityWarning, stacklevel=2)
+    if len(lines) - 1 < min_rows:
+        raise InputError(f"no data rows below the header (need at least {min_rows})", file=name, row=2, column=required[0])
+    # Positional names: pyarrow would otherwise match column_types against the unstripped header.
+    slots = [f"c{i}" for i in range(len(header))]
     try:
         table = pacsv.read_csv(
-            io.BytesIO(text.encode("utf-8")),
-            read_options=pacsv.ReadOptions(use_threads=False),
+            io.BytesIO(("\n".join(lines[1:]) + "\n").encode("utf-8")),
+            read_options=pacsv.ReadOptions(use_threads=False, column_names=slots),
             parse_options=pacsv.ParseOptions(newlines_in_values=False, ignore_empty_lines=False),
             convert_options=pacsv.ConvertOptions(
-                column_types={h: pa.string() for h in header}, strings_can_be_null=False, quoted_strings_can_be_null=False
+                column_types={s: pa.string() for s in slots}, strings_can_be_null=False, quoted_strings_can_be_null=False
             ),
         )
     except pa.ArrowInvalid as exc:
-        _locate_bad_row(path, text, len(header))
+        _locate_bad_row(path, lines, header)
         raise InputError(f"cannot parse CSV: {exc}", file=name) from None
+    if table.num_rows != len(lines) - 1 or any(not line.strip() for line in lines[1:]):
+        _locate_bad_row(path, lines, header)
+        raise InputError("cannot parse CSV: row count does not match the line count", file=name)
     table = table.rename_columns(header)
-    if table.num_rows < min_rows:
-        raise InputError(f"no data rows below the header (need at least {min_rows})", file=name, row=2)
     keep = [c for c in header if c in required or c in optional]
     cols = {c: pc.utf8_trim_whitespace(table.column(c).combine_chunks()) for c in keep}
     return CsvTable(path=name, columns=cols, extra_columns=extra)
@@ -161,9 +219,13 @@ def parse_dates(table: CsvTable, column: str) -> np.ndarray:
     arr = table.columns[column]
     shaped = np.asarray(pc.match_substring_regex(arr, _ISO_DATE).to_numpy(zero_copy_only=False), dtype=bool)
     parsed = pc.strptime(arr, format="%Y-%m-%d", unit="s", error_is_null=True)
-    valid = np.asarray(pc.is_valid(parsed).to_numpy(zero_copy_only=False), dtype=bool)
+    # strptime rolls impossible days over (2024-02-30 -> 2024-03-01): require a round trip.
+    same = pc.equal(pc.strftime(parsed, format="%Y-%m-%d"), arr)
+    valid = np.asarray(pc.fill_null(same, False).to_numpy(zero_copy_only=False), dtype=bool)
     _first_bad(table, column, ~(shaped & valid), "not a valid ISO 8601 date; expected YYYY-MM-DD")
-    return parsed.to_numpy(zero_copy_only=False).astype("datetime64[D]")
+    days = parsed.to_numpy(zero_copy_only=False).astype("datetime64[D]")
+    _first_bad(table, column, days < EARLIEST_DATE, f"date before {EARLIEST_DATE}; a typo in the year?")
+    return days
 
 
 def parse_numbers(table: CsvTable, column: str, *, positive: bool = False) -> np.ndarray:

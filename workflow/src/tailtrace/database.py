@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import logging
 import os
+import re
 import shutil
 import time
 from contextlib import contextmanager
@@ -14,7 +16,16 @@ import pyarrow as pa
 
 from .errors import TailtraceError
 
-__all__ = ["TABLE_KEYS", "DDL", "write_database", "open_read_only", "DatabaseBusy"]
+__all__ = ["TABLE_KEYS", "DDL", "PAUSE_ENV", "write_database", "open_read_only", "DatabaseBusy"]
+
+log = logging.getLogger("tailtrace")
+
+# Test hook (tests/integration/test_crash_safety.py): seconds to wait between
+# writing the temporary database and renaming it, so a test can kill the run
+# at the worst moment. Unset in normal use.
+PAUSE_ENV = "TAILTRACE_TEST_PAUSE_AGGREGATE"
+# Identifiers are interpolated into SQL (DuckDB cannot bind them): only these pass.
+_IDENTIFIER = re.compile(r"[a-z][a-z0-9_]*\Z")
 
 DDL = {
     "risk_figures": """
@@ -54,7 +65,15 @@ class DatabaseBusy(TailtraceError):
     """The database is held by another process."""
 
 
+def _identifier(name: str, what: str) -> str:
+    if not isinstance(name, str) or not _IDENTIFIER.match(name):
+        raise TailtraceError(f"invalid {what} {name!r}: use lower-case letters, digits and '_'")
+    return name
+
+
 def _check_unique(table: pa.Table, keys: Sequence[str], name: str) -> None:
+    for k in keys:
+        _identifier(k, "key column")
     con = duckdb.connect()
     con.register("t", table)
     cols = ", ".join(f'"{k}"' for k in keys)
@@ -90,11 +109,14 @@ def write_database(
     db_path = Path(db_path)
     modes = {**TABLE_KEYS, **(modes or {})}
     for name, table in tables.items():
-        if not name.replace("_", "").isalnum():
-            raise TailtraceError(f"invalid table name {name!r}")
+        _identifier(name, "table name")
+        mode = modes.get(name, "as_of")
+        if mode not in (None, "append"):
+            _identifier(mode, "replacement column")
         if keys and name in keys:
             _check_unique(table, keys[name], name)
-    tmp = db_path.with_name(f".{db_path.name}.{os.getpid()}.tmp")
+    _remove_stale_temps(db_path)
+    tmp = _temp_path(db_path, os.getpid())
     for stale in (tmp, Path(f"{tmp}.wal")):
         stale.unlink(missing_ok=True)
     if db_path.exists():
@@ -122,19 +144,76 @@ def write_database(
     except BaseException:
         con.close()
         tmp.unlink(missing_ok=True)
+        Path(f"{tmp}.wal").unlink(missing_ok=True)
         raise
     con.close()
     if Path(f"{tmp}.wal").exists():
         raise TailtraceError(f"{tmp}.wal remained after checkpoint; not replacing {db_path}")
-    fd = os.open(tmp, os.O_RDONLY)
-    os.fsync(fd)
-    os.close(fd)
+    _fsync(tmp)
+    pause = os.environ.get(PAUSE_ENV)
+    if pause:
+        log.warning("test hook %s: %s written, pausing %s s before replacing %s", PAUSE_ENV, tmp, pause, db_path)
+        time.sleep(float(pause))
     os.replace(tmp, db_path)
+    _fsync(db_path.parent)  # make the rename itself durable
+
+
+def _temp_path(db_path: Path, pid: int) -> Path:
+    return db_path.with_name(f".{db_path.name}.{pid}.tmp")
+
+
+def _fsync(path: Path) -> None:
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def _pid_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _remove_stale_temps(db_path: Path) -> None:
+    """Delete temporary databases left by writers that were killed.
+
+    Their pid is in the name; one whose process is gone is garbage (the real
+    file was never replaced by it).
+    """
+    for old in db_path.parent.glob(f".{db_path.name}.*.tmp"):
+        pid = old.name[len(db_path.name) + 2 : -len(".tmp")]
+        if pid.isdigit() and not _pid_alive(int(pid)):
+            log.info("removing %s left by a killed writer (pid %s)", old, pid)
+            old.unlink(missing_ok=True)
+            Path(f"{old}.wal").unlink(missing_ok=True)
 
 
 @contextmanager
 def open_read_only(db_path: str | Path, *, attempts: int = 10, wait: float = 0.5) -> Iterator[duckdb.DuckDBPyConnection]:
-    """Open the database read-only, retrying briefly while a writer holds it."""
+    """Open the database read-only, retrying briefly while a writer holds it.
+
+    Parameters
+    ----------
+    db_path : the database file
+    attempts, wait : tries and seconds between them before giving up
+
+    Raises
+    ------
+    DatabaseBusy
+        Another process still holds the file read-write after every attempt.
+
+    Notes
+    -----
+    The pipeline's own writer works on a temporary copy and renames it into
+    place, so it never blocks readers; only a process that opened
+    ``risk.duckdb`` itself read-write does.
+    """
     db_path = Path(db_path)
     if not db_path.exists():
         raise TailtraceError(f"{db_path}: no risk database yet; run the pipeline first")
@@ -147,7 +226,8 @@ def open_read_only(db_path: str | Path, *, attempts: int = 10, wait: float = 0.5
             last = exc
             time.sleep(wait)
     else:
-        raise DatabaseBusy(f"{db_path} is locked by another process: {last}")
+        raise DatabaseBusy(f"{db_path} is held read-write by another process; gave up after {attempts} attempts "
+                           f"over {attempts * wait:.1f} s. Close that process and retry. ({last})")
     try:
         yield con
     finally:

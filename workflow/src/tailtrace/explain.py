@@ -106,7 +106,7 @@ def figure_value(state: State, key: FigureKey) -> tuple[float, float]:
     """
     from .estimators.registry import get_estimator
     from .pipeline import as_of_seed
-    from .scenarios import Holdings, build_sample, exposures_table
+    from .scenarios import build_sample, linear_book
 
     market = state.market
     if state.as_of not in market.dates:
@@ -115,9 +115,8 @@ def figure_value(state: State, key: FigureKey) -> tuple[float, float]:
     if unpriced:
         raise InputError("instrument has no prices in this market data", file=state.positions_file,
                          column="instrument", value=unpriced[0])
-    holdings = Holdings.from_table(state.as_of, state.positions, state.positions_file)
-    exposures = exposures_table(holdings, market)
-    sample = build_sample(market, exposures, state.as_of, state.params.window_days)
+    book = linear_book(state.as_of, state.positions, state.positions_file, market)
+    sample = build_sample(market, book, state.params.window_days)
     p = _index(sample.portfolios, key.portfolio, "portfolio")
     c = _index(state.params.confidences, float(key.confidence), "confidence")
     h = _index(state.params.horizons, int(key.horizon), "horizon")

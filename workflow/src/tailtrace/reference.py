@@ -8,14 +8,16 @@ from typing import Iterable
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
-from .csvread import parse_numbers, read_csv_strict, require_text
+from .csvread import CsvTable, parse_numbers, read_csv_strict, require_text
 from .errors import InputError
 
 __all__ = [
     "ASSET_CLASSES",
     "INSTRUMENT_COLUMNS",
     "OPTION_COLUMNS",
+    "OPTION_REQUIRED",
     "POSITION_COLUMNS",
     "fx_instrument",
     "read_instruments",
@@ -25,6 +27,8 @@ __all__ = [
 INSTRUMENT_COLUMNS = ("instrument", "asset_class", "currency")
 OPTION_COLUMNS = ("underlying", "option_type", "strike", "expiry", "implied_vol", "rate", "dividend_yield", "multiplier")
 POSITION_COLUMNS = ("portfolio", "instrument", "quantity")
+# Fields an option row cannot do without (tailtrace.options checks their values).
+OPTION_REQUIRED = ("underlying", "option_type", "strike", "expiry", "implied_vol")
 ASSET_CLASSES = (
     "equity",
     "equity_index",
@@ -54,13 +58,38 @@ def _first_duplicate(keys: np.ndarray) -> tuple[int, int] | None:
     return int(order[j]), int(order[j + 1])
 
 
+def _check_option_rows(table: CsvTable, asset: np.ndarray) -> None:
+    """Rows of asset_class 'option' need every field of OPTION_REQUIRED filled."""
+    is_option = asset == "option"
+    if not is_option.any():
+        return
+    first = int(np.flatnonzero(is_option)[0])
+    for column in OPTION_REQUIRED:
+        if column not in table.columns:
+            raise InputError(f"an option row needs column '{column}' (and {', '.join(OPTION_REQUIRED)}); the header lacks it",
+                             file=table.path, row=table.row_of(first), column=column)
+        empty = np.asarray(pc.equal(pc.utf8_length(table.columns[column]), 0).to_numpy(zero_copy_only=False), dtype=bool)
+        bad = is_option & empty
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise InputError(f"empty {column}; an option needs {', '.join(OPTION_REQUIRED)}", file=table.path,
+                             row=table.row_of(i), column=column, value=table.columns["instrument"][i].as_py())
+
+
 def read_instruments(path: str | Path) -> pa.Table:
     """Read and validate instruments.csv.
 
     Returns
     -------
     pyarrow.Table with ``instrument, asset_class, currency`` and any option
-    columns present (as text; the options module validates them).
+    columns present (as text; the options module validates their values).
+
+    Raises
+    ------
+    InputError
+        A duplicate instrument, an unknown asset_class, a currency that is not
+        three capitals, an option row lacking a column or value of
+        :data:`OPTION_REQUIRED`.
     """
     table = read_csv_strict(path, INSTRUMENT_COLUMNS, OPTION_COLUMNS)
     inst = require_text(table, "instrument")
@@ -80,6 +109,7 @@ def read_instruments(path: str | Path) -> pa.Table:
         i = int(np.flatnonzero(bad_ccy)[0])
         raise InputError("currency must be a three-letter ISO 4217 code", file=table.path, row=table.row_of(i),
                          column="currency", value=ccy[i])
+    _check_option_rows(table, asset)
     cols = {c: table.columns[c] for c in table.columns}
     cols["row"] = pa.array(table.row_of(np.arange(table.n_rows)), type=pa.int64())
     return pa.table(cols)

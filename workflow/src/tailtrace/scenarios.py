@@ -23,6 +23,7 @@ __all__ = [
     "holdings_from_exposures",
     "Book",
     "make_book",
+    "linear_book",
 ]
 
 EXPOSURE_SCHEMA = pa.schema(
@@ -110,14 +111,20 @@ def make_book(as_of: np.datetime64, positions: pa.Table, source_file: str, marke
     options = option_instruments(instruments)
     held = set(positions.column("instrument").to_pylist())
     if not held & options:
-        holdings = Holdings.from_table(as_of, positions, source_file)
-        exp = exposures_table(holdings, market)
-        portfolios, names, values, _ = holdings_from_exposures(exp, as_of)
-        sources = {i: (source_file, int(r)) for i, r in zip(exp.column("instrument").to_pylist(),
-                                                            exp.column("positions_row").to_pylist())}
-        return Book(as_of, portfolios, names, values, linear_revalue(values), {}, exp, None, sources)
+        return linear_book(as_of, positions, source_file, market)
     return _option_book(as_of, positions, source_file, market, instruments, options, base_currency=base_currency,
                         instruments_file=instruments_file)
+
+
+def linear_book(as_of: np.datetime64, positions: pa.Table, source_file: str, market: MarketData) -> Book:
+    """The book of a positions table holding linear instruments only."""
+    as_of = np.datetime64(as_of, "D")
+    holdings = Holdings.from_table(as_of, positions, source_file)
+    exp = exposures_table(holdings, market)
+    portfolios, names, values, _ = holdings_from_exposures(exp, as_of)
+    sources = {i: (source_file, int(r)) for i, r in zip(exp.column("instrument").to_pylist(),
+                                                        exp.column("positions_row").to_pylist())}
+    return Book(as_of, portfolios, names, values, linear_revalue(values), {}, exp, None, sources)
 
 
 def _option_book(as_of, positions, source_file, market, instruments, options, *, base_currency, instruments_file):
@@ -264,6 +271,21 @@ def holdings_from_exposures(exposures: pa.Table, as_of: np.datetime64) -> tuple[
     return tuple(map(str, portfolios)), tuple(map(str, instruments)), values, part
 
 
+def _missing_cause(market: MarketData, col: int, t: int) -> str:
+    """Why the return on row ``t`` of column ``col`` is missing, as far as the data tells."""
+    if market.base is None or market.local is None or market.observed is None:
+        return "it has too little history or a gap longer than the fill limit"
+    r = t if np.isnan(market.base[t, col]) else t - 1
+    if not np.isnan(market.local[r, col]):
+        return (f"its own close is there on {market.dates[r]} but the FX rate converting it to the base currency is "
+                "missing (a gap longer than the fill limit, or the FX series starts later)")
+    seen = np.flatnonzero(market.observed[:, col])
+    if seen.size == 0 or seen[0] > r:
+        first = market.dates[seen[0]] if seen.size else "never"
+        return f"its first price is on {first}: too little history for the window"
+    return f"no close on {market.dates[r]}: a gap longer than the fill limit (returns.max_fill_days)"
+
+
 def build_sample(market: MarketData, book: "Book", window: int) -> RiskSample:
     """The estimation sample of one as_of (window returns, holdings, P&L).
 
@@ -280,11 +302,12 @@ def build_sample(market: MarketData, book: "Book", window: int) -> RiskSample:
     bad = ~np.isfinite(returns)
     if bad.any():
         j = int(np.flatnonzero(bad.any(axis=0))[0])
-        first_bad = market.dates[idx[np.flatnonzero(bad[:, j])[0]]]
+        t = int(idx[np.flatnonzero(bad[:, j])[0]])
+        first_bad = market.dates[t]
         file, row = book.locate(book.instruments[j])
         raise InputError(
             f"instrument {book.instruments[j]} lacks prices inside the {window}-day window ending {as_of} "
-            f"(first missing return {first_bad}); it has too little history or a gap longer than the fill limit",
+            f"(first missing return {first_bad}); {_missing_cause(market, cols[j], t)}",
             file=file, row=row, column="instrument", value=book.instruments[j])
     end = int(idx[-1]) + 1
     start_hist = int(np.flatnonzero(np.isfinite(market.log_returns[:end, cols]).all(axis=1))[0])
