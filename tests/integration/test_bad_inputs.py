@@ -294,15 +294,15 @@ CATALOGUE: list[Bad] = [
     Bad("fx_series_not_in_base", "FX series quoted in its own currency", set_field(INST, 5, 2, "USD"),
         r"instruments\.csv, row 5, column 'currency': an FX series must be priced in the base currency EUR", "build_returns"),
     Bad("fx_gap_beyond_fill_limit", "FX rate missing on 5 dates (fill limit 3)", delete_lines(FX, [2 + k for k in GAP]),
-        r"positions\.csv, row 3, column 'instrument': instrument lacks prices inside the 60-day window .*"
+        r"positions\.csv, row 3, column 'instrument': instrument \S+ lacks prices inside the 60-day window .*"
         r"FX rate converting it to the base currency is missing", "build_scenarios"),
     Bad("price_gap_beyond_fill_limit", "close missing on 5 dates (fill limit 3)", delete_lines(EQ, [3 + 3 * k for k in GAP]),
-        r"positions\.csv, row 5, column 'instrument': instrument lacks prices inside the 60-day window .*"
+        r"positions\.csv, row 5, column 'instrument': instrument \S+ lacks prices inside the 60-day window .*"
         r"no close on 2024-06-20: a gap longer than the fill limit", "build_scenarios"),
     Bad("too_little_history", "instrument with 30 days of prices, window 60",
         both(append_lines(INST, "EQ.D,equity,EUR"), append_lines(POS, "LONG,EQ.D,10"),
              append_lines(EQ, *(f"{d},EQ.D,{50 + i / 10:.2f}" for i, d in enumerate(DAYS[-30:])))),
-        r"positions\.csv, row 7, column 'instrument': instrument lacks prices inside the 60-day window .*"
+        r"positions\.csv, row 7, column 'instrument': instrument \S+ lacks prices inside the 60-day window .*"
         rf"its first price is on {DAYS[-30]}: too little history for the window",
         "build_scenarios"),
     # configuration
@@ -382,10 +382,13 @@ def run_steps(data: Path, out: Path, config: Mapping) -> list[str]:
     market = {k: str(out / f"{k}.parquet") for k in ("local", "base", "observed", "returns", "filled")}
     pl.build_returns(prices, instruments, market, base_currency=config["base_currency"],
                      max_fill_days=config["returns"]["max_fill_days"], instruments_file=str(data / inputs["instruments"]))
-    return pl.build_scenarios(market, str(out / "positions.parquet"),
-                              {"exposures": str(out / "exposures.parquet"), "pnl": str(out / "pnl.parquet")},
+    return pl.build_scenarios(market, str(out / "positions.parquet"), instruments,
+                              {"exposures": str(out / "exposures.parquet"), "pnl": str(out / "pnl.parquet"),
+                               "sensitivities": str(out / "sensitivities.parquet")},
                               as_of=config["as_of"], window_days=config["window_days"],
-                              positions_file=str(data / inputs["positions"]))
+                              positions_file=str(data / inputs["positions"]),
+                              instruments_file=str(data / inputs["instruments"]),
+                              base_currency=config["base_currency"])
 
 
 @pytest.fixture(scope="module")
@@ -554,7 +557,9 @@ def test_every_object_in_the_config_schema_is_closed():
 
 SQL_METHODS = {"execute", "executemany", "sql", "query"}
 # Identifiers database.py interpolates, each checked against an allow-list pattern first.
-ALLOWED_INTERPOLATIONS = {("database.py", "name"), ("database.py", "mode"), ("database.py", "cols")}
+ALLOWED_INTERPOLATIONS = {("database.py", "name"), ("database.py", "mode"), ("database.py", "cols"),
+                          # the report's reader: table and column names from its REPORT_TABLES allow-list
+                          ("store.py", "select"), ("store.py", "table")}
 
 
 def test_no_sql_is_built_by_formatting_data_values():

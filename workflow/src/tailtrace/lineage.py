@@ -57,8 +57,11 @@ def _relevant_steps(run: RecordedRun, method: str, price_files: set[str], positi
     for s in run.steps:
         if s.rule == "ingest_prices" and not {e.path for e in s.inputs_named("prices")} & price_files:
             continue
-        if s.rule.startswith("estimate_") and s.rule != f"estimate_{method}":
+        producer = "stress" if method.endswith("_stressed") else f"estimate_{method}"
+        if s.rule.startswith("estimate_") and s.rule != producer:
             continue
+        if s.rule not in CHAIN_ORDER and not s.rule.startswith("estimate_") and s.rule != producer:
+            continue  # backtest, contributions, stress, report: they read the figures' inputs, not feed them
         chosen.append(s)
     return sorted(chosen, key=lambda s: (_chain_rank(s.rule), s.label))
 

@@ -130,16 +130,24 @@ def read_records(paths: list[str]) -> list[dict[str, Any]]:
     return [json.loads(Path(p).read_text()) for p in sorted(paths)]
 
 
+_LOCATION_PARAMS = ("database",)  # params that only say where things are
+
+
 def run_id(records: list[dict[str, Any]]) -> str:
-    """Deterministic id of a run: a hash of every step's files and params.
+    """Deterministic id of a run: a hash of every step's file contents and params.
 
     Two runs on the same inputs, code and configuration share an id, so the
     figure table stays bitwise identical; each run is still recorded with its
-    own time in the provenance table.
+    own time in the provenance table. Folder locations do not count (files by
+    name and content, location-only params left out), so a run rebuilt
+    elsewhere from the same inputs keeps its id.
     """
+    def params(p: dict[str, Any]) -> dict[str, Any]:
+        return {k: v for k, v in p.items() if k not in _LOCATION_PARAMS and not k.endswith("_file")}
+
     content = [
-        {"rule": r["rule"], "wildcards": r["wildcards"], "params": r["params"],
-         "files": [(e["role"], e["path"], e["sha256"]) for e in r["inputs"] + r["outputs"]]}
+        {"rule": r["rule"], "wildcards": r["wildcards"], "params": params(r["params"]),
+         "files": sorted((e["role"], e["name"], Path(e["path"]).name, e["sha256"]) for e in r["inputs"] + r["outputs"])}
         for r in sorted(records, key=lambda r: (r["rule"], json.dumps(r["wildcards"], sort_keys=True)))
     ]
     return sha256_text(json.dumps(content, sort_keys=True))[:16]

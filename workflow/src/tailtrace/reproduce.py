@@ -21,7 +21,7 @@ from .errors import TailtraceError
 from .figures import FIGURE_SCHEMA
 from .hashing import sha256_file
 from .recorded import FileEntry, RecordedRun, load_run
-from .runner import snakemake_command
+from .runner import REPO_ROOT, snakemake_command
 
 __all__ = ["INPUT_SOURCES", "Difference", "ReproduceReport", "reproduce_run", "diff_figures", "format_reproduce"]
 
@@ -113,17 +113,44 @@ def _layout(run: RecordedRun, root: Path) -> tuple[dict[str, Any], dict[str, Pat
     def inside(p: Path) -> bool:
         return not p.is_absolute() and ".." not in p.parts
 
-    if all(inside(Path(config.get(k, "."))) for k in ("data_dir", "results_dir")) and all(inside(Path(e.path)) for e in raws):
-        return config, {e.path: root / e.path for e in raws}
+    def settings_file(e: FileEntry) -> bool:  # stress windows, shocks, limits: files of the checkout
+        return not inside(Path(e.path)) and run.resolve(e.path).resolve().is_relative_to(REPO_ROOT)
+
+    if all(inside(Path(config.get(k, "."))) for k in ("data_dir", "results_dir")) and all(
+            inside(Path(e.path)) or settings_file(e) for e in raws):
+        targets = {}
+        for e in raws:
+            if inside(Path(e.path)):
+                targets[e.path] = root / e.path
+            else:
+                src = run.resolve(e.path).resolve()
+                targets[e.path] = root / "settings" / src.relative_to(REPO_ROOT)
+                _repoint(config, src, targets[e.path])
+        return config, targets
     data = run.data_dir().resolve()
     targets = {}
     for e in raws:
         src = run.resolve(e.path).resolve()
-        if not src.is_relative_to(data):
+        if src.is_relative_to(data):
+            targets[e.path] = root / "data" / src.relative_to(data)
+        elif src.is_relative_to(REPO_ROOT):  # settings files of the checkout (stress windows, shocks, limits)
+            targets[e.path] = root / "settings" / src.relative_to(REPO_ROOT)
+            _repoint(config, src, targets[e.path])
+        else:
             raise TailtraceError(f"cannot place input {e.path} in the rebuild: it lies outside the data folder {data}")
-        targets[e.path] = root / "data" / src.relative_to(data)
     config.update(data_dir=str(root / "data"), results_dir=str(root / "results"))
     return config, targets
+
+
+def _repoint(config: dict[str, Any], original: Path, target: Path) -> None:
+    """Point every config value naming ``original`` (relative to the checkout or absolute) at ``target``."""
+    for key, value in config.items():
+        if isinstance(value, dict):
+            _repoint(value, original, target)
+        elif isinstance(value, str) and value:
+            p = Path(value)
+            if (p if p.is_absolute() else REPO_ROOT / p).resolve() == original:
+                config[key] = str(target)
 
 
 def _restore(run: RecordedRun, entry: FileEntry, target: Path, source: str) -> dict[str, Any]:
