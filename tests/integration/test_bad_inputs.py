@@ -43,7 +43,10 @@ from fixture_data import business_days, write_tiny_dataset  # noqa: E402
 from tailtrace.errors import ConfigError, DataQualityWarning, InputError  # noqa: E402
 
 # Small enough for a few seconds per run on the tiny dataset (160 days).
-TEST_CONFIG: dict = {"window_days": 60, "monte_carlo": {"paths": 2000}}
+# stress, backtest and decomposition have their own tests; leaving them out keeps these runs short
+TEST_CONFIG: dict = {"window_days": 60, "monte_carlo": {"paths": 2000}, "stress": {"enabled": False},
+                     "backtest": {"enabled": False}, "contributions": {"methods": []},
+                     "methods": ["parametric_normal", "historical", "historical_overlapping", "monte_carlo"]}
 FIGURE_ORDER = "as_of, portfolio, method, confidence, horizon_days"
 N_DAYS = 160
 DAYS = business_days("2024-01-01", N_DAYS)

@@ -24,8 +24,11 @@ def test_generic_cluster_executor_runs_every_job_in_its_own_process(tmp_path):
     rules = sorted(line.split()[0] for line in lines if line)
     # every non-local job went through the submit command, with its declared memory
     assert rules == sorted(["ingest_instruments", "ingest_positions", "ingest_prices", "ingest_prices",
-                            "build_returns", "build_scenarios", "estimate_historical", "estimate_parametric_normal"])
+                            "build_returns", "build_scenarios", "estimate_historical", "estimate_parametric_normal",
+                            "backtest", "contributions", "stress"])  # aggregate and report are local rules
     assert "estimate_historical mem_mb=4000" in lines and "ingest_instruments mem_mb=1000" in lines
     con = duckdb.connect(str(tmp_path / "results" / "risk.duckdb"), read_only=True)
-    assert con.execute("SELECT count(*) FROM risk_figures").fetchone()[0] == 2 * 2 * 3 * 2
+    assert con.execute("SELECT count(*) FROM risk_figures WHERE method NOT LIKE '%_stressed'").fetchone()[0] == 2 * 2 * 3 * 2
+    for table in ("backtest_summary", "risk_contributions", "stress_results"):
+        assert con.execute(f"SELECT count(*) FROM {table}").fetchone()[0] > 0, table
     con.close()

@@ -135,9 +135,13 @@ def test_monte_carlo_figures_depend_on_the_seed(runs, tmp_path):
 
     def figures(seed: int) -> np.ndarray:
         out = tmp_path / f"mc-{seed}.parquet"
-        run_estimator(str(runs.results / "market" / "returns.parquet"), str(runs.results / "scenarios" / "exposures.parquet"),
-                      str(out), method="monte_carlo", confidences=[0.95, 0.99], horizons=[1, 10], window_days=60,
-                      options={"paths": 2000, "batches": 10, "include_mean": False}, seed=seed, currency="EUR")
+        r = runs.results
+        market = {k: str(r / "market" / f"{k}.parquet") for k in ("local", "base", "observed", "returns")}
+        run_estimator(market, str(r / "scenarios" / "exposures.parquet"), str(r / "reference" / "positions.parquet"),
+                      str(r / "reference" / "instruments.parquet"), str(out), method="monte_carlo",
+                      confidences=[0.95, 0.99], horizons=[1, 10], window_days=60,
+                      options={"paths": 2000, "batches": 10, "include_mean": False}, seed=seed, currency="EUR",
+                      positions_file="positions.csv", instruments_file="instruments.csv")
         return pq.read_table(out).column("var").to_numpy()
 
     first, again, other = figures(11), figures(11), figures(12)

@@ -21,17 +21,19 @@ report: "{captions}/workflow.rst"
 
 rule report:
     input:
-        db="risk.duckdb",
+        receipt="aggregate.json",
         limits="limits.csv",
         pnl="pnl.parquet",
     output:
-        html=report("results/report/{{as_of}}.html", caption="{captions}/report_page.rst",
+        html=report("results/report/latest.html", caption="{captions}/report_page.rst",
                     category="End-of-day report"),
-        csv=report("results/report/{{as_of}}.csv", caption="{captions}/report_headline.rst",
+        csv=report("results/report/latest.csv", caption="{captions}/report_headline.rst",
                    category="End-of-day report"),
+        prov="results/provenance/report.json",
     log:
-        "logs/report/{{as_of}}.log",
+        "logs/report.log",
     params:
+        database="risk.duckdb",
         base_currency="EUR",
         headline_method="historical",
         disagreement_ratio=1.5,
@@ -70,16 +72,17 @@ def test_under_snakemake_with_report_captions(tmp_path: Path, full_db: Path, pnl
     work.mkdir()
     (work / "risk.duckdb").write_bytes(full_db.read_bytes())
     (work / "pnl.parquet").write_bytes(pnl_file.read_bytes())
+    (work / "aggregate.json").write_text('{"as_of": ["2024-06-28"]}')
     fx.write_limits(work / "limits.csv", [("balanced_core", "var", 0.99, 1, 1_000_000)])
     (work / "Snakefile").write_text(SNAKEFILE.format(captions=CAPTIONS, script=SCRIPT))
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(ROOT / "workflow" / "src"),
                                                        os.environ.get("PYTHONPATH", "")]))
-    target = "results/report/2024-06-28.html"
+    target = "results/report/latest.html"
     smk = [sys.executable, "-m", "snakemake", "--cores", "1"]
 
     first = subprocess.run([*smk, target], cwd=work, env=env, capture_output=True, text=True, timeout=300)
     assert first.returncode == 0, first.stderr[-3000:]
-    log = (work / "logs" / "report" / "2024-06-28.log").read_text()
+    log = (work / "logs" / "report.log").read_text()
     assert "48 figures, 1 limit breaches" in log and "limit breach: portfolio 'balanced_core'" in log
     assert (work / "results" / "report" / "2024-06-28.csv").stat().st_mode & 0o044  # readable by others
 
@@ -91,5 +94,6 @@ def test_under_snakemake_with_report_captions(tmp_path: Path, full_db: Path, pnl
     assert made.returncode == 0, made.stderr[-3000:]
     text = (work / "snakemake_report.html").read_text(encoding="utf-8")
     # Captions are rendered with their Jinja fields filled in.
-    assert "End-of-day risk report for 2024-06-28" in text
+    assert "End-of-day risk report of the run's latest as_of" in text
+    assert (work / "results" / "report" / "2024-06-28.html").exists()  # the dated page beside latest
     assert "headline method historical" in text

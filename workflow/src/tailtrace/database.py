@@ -171,13 +171,18 @@ def _fsync(path: Path) -> None:
 
 
 def _pid_alive(pid: int) -> bool:
+    """True while ``pid`` runs; a zombie (killed, not yet reaped) counts as gone."""
     try:
         os.kill(pid, 0)
     except ProcessLookupError:
         return False
     except PermissionError:
         return True
-    return True
+    try:
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:
+        return True
+    return stat[stat.rindex(")") + 2 :].split()[0] != "Z"
 
 
 def _remove_stale_temps(db_path: Path) -> None:

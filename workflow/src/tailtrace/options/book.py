@@ -110,7 +110,7 @@ class OptionBook:
         Base-currency P&L of one calendar day of ageing, all else fixed.
     sensitivities : pandas.DataFrame
         One row per (portfolio, instrument) position, columns
-        :data:`SENSITIVITY_COLUMNS` (see ``docs/methodology-options.md``).
+        :data:`SENSITIVITY_COLUMNS` (see ``docs/methodology.md, options section``).
     """
 
     portfolios: tuple[str, ...]
