@@ -63,7 +63,7 @@ def test_historical_kth_worst_rule(pnl):
 
 
 def test_ewma_matches_a_plain_recursion(pnl):
-    # sigma2_t = lambda sigma2_{t-1} + (1 - lambda) x_{t-1}^2, lambda = 0.94 (RiskMetrics
+    # sigma2_t = lambda sigma2_{t-1} + (1 - lambda) x_{t-1}^2, lambda = 0.94 (the 1996 industry default
     # 1996, REFERENCES.md), seeded with the mean square of the first window.
     w, days, lam = 100, 80, 0.94
     r = FORECASTERS["ewma_normal"](pnl, CONF, window=w, days=days)

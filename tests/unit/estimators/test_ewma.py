@@ -7,7 +7,7 @@ from tailtrace.estimators.samples import linear_sample
 
 
 def _recursion(x, decay):
-    # the RiskMetrics recursion written out day by day (RiskMetrics Technical Document, 1996;
+    # the EWMA recursion written out day by day (the 1996 industry technical document, as discussed in Hull;
     # Hull, Risk Management and Financial Institutions, volatility chapter), seeded as documented
     cov = x.T @ x / len(x)
     for row in x:

@@ -25,7 +25,7 @@ def cf_quantile(z: np.ndarray, skew: np.ndarray, exkurt: np.ndarray) -> np.ndarr
     References
     ----------
     Zangari, P. (1996). A VaR methodology for portfolios that include
-    options. RiskMetrics Monitor, first quarter 1996.
+    options. 1996.
     """
     z, s, k = (np.asarray(a, dtype=float) for a in (z, skew, exkurt))
     return z + (z * z - 1) * s / 6 + (z**3 - 3 * z) * k / 24 - (2 * z**3 - 5 * z) * s * s / 36

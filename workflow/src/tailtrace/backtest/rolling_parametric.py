@@ -86,7 +86,7 @@ def forecast_parametric_normal(
 
     References
     ----------
-    J.P. Morgan/Reuters (1996), RiskMetrics Technical Document; Jorion,
+    the 1996 industry technical document on EWMA volatility (as discussed in Hull, *Risk Management and Financial Institutions*, volatility chapter); Jorion,
     Value at Risk, ch. 5.
     """
     opts = read_options("parametric_normal", options, {"include_mean": False})
@@ -106,7 +106,7 @@ def forecast_ewma_normal(
     options: Mapping[str, Any] | None = None,
     seed: int | np.random.Generator | None = None,
 ) -> RollingForecast:
-    """Normal VaR/ES with an EWMA (RiskMetrics) variance, zero mean.
+    """Normal VaR/ES with an EWMA variance, zero mean.
 
     Parameters
     ----------
@@ -129,7 +129,7 @@ def forecast_ewma_normal(
 
     References
     ----------
-    J.P. Morgan/Reuters (1996), RiskMetrics Technical Document, 4th ed.
+    the 1996 industry technical document on EWMA volatility (as discussed in Hull, *Risk Management and Financial Institutions*, volatility chapter)
     """
     opts = read_options("ewma_normal", options, {"lambda": 0.94})
     setup = prepare(pnl, confidences, window, days)
@@ -234,7 +234,7 @@ def forecast_cornish_fisher(
 
     References
     ----------
-    Zangari, P. (1996), RiskMetrics Monitor Q1; Hull, Options, Futures, and
+    Zangari, P. (1996), 1996 article; Hull, Options, Futures, and
     Other Derivatives, VaR chapter.
     """
     opts = read_options("cornish_fisher", options, {"include_mean": False})

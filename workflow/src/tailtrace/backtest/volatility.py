@@ -45,7 +45,7 @@ def ewma_variance_path(pnl: np.ndarray, lam: float, start: int, stop: int, seed_
 
     References
     ----------
-    J.P. Morgan/Reuters (1996). RiskMetrics Technical Document, 4th ed.;
+    the 1996 industry technical document on EWMA volatility (as discussed in Hull, *Risk Management and Financial Institutions*, volatility chapter);
     Hull, Risk Management and Financial Institutions, volatility chapter.
     """
     from scipy.signal import lfilter

@@ -38,7 +38,7 @@ def cornish_fisher_z(z: np.ndarray, skew: np.ndarray, kurt: np.ndarray) -> np.nd
     References
     ----------
     Zangari, "A VaR methodology for portfolios that include options",
-    RiskMetrics Monitor, Q1 1996; Favre & Galeano, "Mean-modified
+    1996; Favre & Galeano, "Mean-modified
     Value-at-Risk optimization with hedge funds", Journal of Alternative
     Investments 5(2), 2002.
     """

@@ -119,7 +119,7 @@ def cornish_fisher_quantile(z: np.ndarray, skew: np.ndarray, exkurt: np.ndarray)
     References
     ----------
     Cornish & Fisher (1937); Zangari, "A VaR methodology for portfolios that
-    include options", RiskMetrics Monitor, Q1 1996.
+    include options", 1996.
     """
     s, k = np.asarray(skew), np.asarray(exkurt)
     return z + (z * z - 1.0) * s / 6.0 + (z ** 3 - 3.0 * z) * k / 24.0 - (2.0 * z ** 3 - 5.0 * z) * s * s / 36.0
@@ -243,7 +243,7 @@ def estimate(
 
     References
     ----------
-    Zangari (1996), RiskMetrics Monitor; Jorion, *Value at Risk*, 3rd ed.
+    Zangari (1996), "A VaR methodology for portfolios that include options"; Jorion, *Value at Risk*, 3rd ed.
     (2007); Hull, *Options, Futures, and Other Derivatives*, VaR chapter.
     """
     opts = check_options(options, DEFAULTS, "delta_gamma")

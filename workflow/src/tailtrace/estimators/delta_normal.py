@@ -167,7 +167,8 @@ def estimate(
 
     References
     ----------
-    J.P. Morgan/Reuters, *RiskMetrics — Technical Document*, 4th ed. (1996);
+    the 1996 industry technical document on EWMA volatility, as discussed in Hull, *Risk Management and
+    Financial Institutions*, volatility chapter;
     Jorion, *Value at Risk*, 3rd ed. (2007), ch. on VaR methods; Hull, *Risk
     Management and Financial Institutions*, model-building chapter.
     """

@@ -56,7 +56,8 @@ def ewma_covariance(x: np.ndarray, decay: float) -> np.ndarray:
 
     References
     ----------
-    J.P. Morgan/Reuters, *RiskMetrics — Technical Document*, 4th ed., 1996;
+    the 1996 industry technical document on EWMA volatility, as discussed in Hull, *Risk Management and
+    Financial Institutions*, volatility chapter;
     Hull, *Risk Management and Financial Institutions*, volatility chapter.
     """
     x = np.asarray(x, dtype=float)
