@@ -276,8 +276,12 @@ def run_stress_step(market_files: Mapping[str, str], exposures: str, positions: 
             log.warning("history of as_of %s has %d days, fewer than the stressed window of %d: the whole history "
                         "is used", book.as_of, len(sample.history), config.stressed_length_days)
             settings_day = dataclasses.replace(config, stressed_length_days=len(sample.history))
+        revalue_vol = None
+        if book.sensitivities is not None:  # option books: implied-vol shocks reprice the options
+            def revalue_vol(log_shocks, vol_shocks, horizon_days, _revalue=book.revalue):
+                return _revalue(log_shocks, horizon_days, vol_shocks=vol_shocks)
         run = run_stress(sample, sample.history_dates, meta, windows=inside, scenarios=scenarios,
-                         settings=settings_day, prices=local)
+                         settings=settings_day, prices=local, revalue_vol=revalue_vol)
         records += run.records
         liquidity += run.liquidity_rows
         scans += run.stressed_window_rows
