@@ -21,6 +21,7 @@ include: "workflow/rules/common.smk"
 include: "workflow/rules/ingest.smk"
 include: "workflow/rules/returns.smk"
 include: "workflow/rules/estimate.smk"
+include: "workflow/rules/stress.smk"
 include: "workflow/rules/aggregate.smk"
 
 

@@ -836,6 +836,26 @@ def demo_positions(paths: MarketPaths) -> dict[str, dict[str, dict[str, int]]]:
     return {POSITION_DATES[0]: earlier, POSITION_DATES[1]: last}
 
 
+OPTION_COLUMNS = ("underlying", "option_type", "strike", "expiry", "implied_vol", "rate", "dividend_yield", "multiplier")
+_PUT_BOOK, _PUT_UNDERLYING = "alder_long_only", "EQ.VELMARSK"
+_OPTION_EXPIRY = "2025-06-30"
+
+
+def option_overlay(paths: MarketPaths, books: dict[str, dict[str, int]]) -> list[tuple[tuple, tuple]]:
+    """Protective puts for the long-only book: an instrument row and a position row.
+
+    One six-month put per share of the book's largest EUR holding, struck at
+    90% of its last close, implied vol = its realised vol plus 3 points.
+    """
+    col = paths.column(_PUT_UNDERLYING)
+    close = float(paths.prices[-1, col])
+    vol = float(paths.log_returns[-250:, col].std(ddof=1) * np.sqrt(_TRADING_DAYS)) + 0.03
+    name = f"PUT.{_PUT_UNDERLYING[3:]}.2025-06"
+    row = (name, "option", BASE_CURRENCY, _PUT_UNDERLYING, "put", f"{round(0.9 * close, 2):.2f}", _OPTION_EXPIRY,
+           f"{vol:.4f}", "0.025", "0.02", "1")
+    return [(row, (_PUT_BOOK, name, books[_PUT_BOOK][_PUT_UNDERLYING]))]
+
+
 def _write_rows(path: Path, header: Sequence[str], rows: Iterable[Sequence[object]]) -> None:
     with open(path, "w", encoding="ascii", newline="") as fh:
         writer = csv.writer(fh, lineterminator="\n")
@@ -936,8 +956,12 @@ def write_demo(out_dir: Path | str, *, seed: int | np.random.Generator = DEFAULT
     decimals = price_decimals(np.array([s.start_price for s in specs]))
     files = []
 
+    books = demo_positions(paths)
+    overlay = option_overlay(paths, books[POSITION_DATES[-1]])
     path = out / "instruments.csv"
-    _write_rows(path, ("instrument", "asset_class", "currency"), [(s.name, s.asset_class, s.currency) for s in specs])
+    blank = ("",) * len(OPTION_COLUMNS)
+    rows = [(s.name, s.asset_class, s.currency, *blank) for s in specs] + [row for row, _ in overlay]
+    _write_rows(path, ("instrument", "asset_class", "currency", *OPTION_COLUMNS), rows)
     files.append(path)
     listed = [n for group in PRICE_FILES.values() for n in group]
     if sorted(listed) != sorted(paths.instruments):
@@ -948,10 +972,10 @@ def write_demo(out_dir: Path | str, *, seed: int | np.random.Generator = DEFAULT
         write_price_csv(path, paths.dates, group, closes[:, cols], present[:, cols], decimals[cols])
         files.append(path)
 
-    books = demo_positions(paths)
     header = ("portfolio", "instrument", "quantity")
     for date, held in books.items():
         rows = [(book, name, q) for book, qs in held.items() for name, q in qs.items()]
+        rows += [(book, name, q) for _, (book, name, q) in overlay]
         path = out / "positions" / f"{date}.csv"
         _write_rows(path, header, rows)
         files.append(path)

@@ -42,7 +42,8 @@ def _rows(path: Path) -> list[dict[str, str]]:
 
 @pytest.fixture(scope="module")
 def instruments() -> dict[str, dict[str, str]]:
-    return {r["instrument"]: r for r in _rows(DEMO / "instruments.csv")}
+    """Instruments with price series (the option overlay is tested on its own)."""
+    return {r["instrument"]: r for r in _rows(DEMO / "instruments.csv") if r["asset_class"] != "option"}
 
 
 @pytest.fixture(scope="module")
@@ -125,7 +126,8 @@ def test_simulation_is_seeded_and_accepts_a_generator():
 
 def test_instruments_schema(instruments):
     with open(DEMO / "instruments.csv", encoding="ascii") as fh:
-        assert fh.readline().strip() == "instrument,asset_class,currency"
+        header = fh.readline().strip()
+    assert header == "instrument,asset_class,currency,underlying,option_type,strike,expiry,implied_vol,rate,dividend_yield,multiplier"
     assert len(instruments) == 12
     for name, row in instruments.items():
         assert row["asset_class"] in ASSET_CLASSES, name
@@ -175,7 +177,8 @@ def test_every_foreign_currency_has_a_complete_fx_series(instruments, prices, ca
         np.testing.assert_array_equal(prices[fx][0], calendar)
 
 
-def test_positions_refer_to_known_instruments(instruments):
+def test_positions_refer_to_known_instruments():
+    instruments = {r["instrument"] for r in _rows(DEMO / "instruments.csv")}
     for path in [DEMO / "positions.csv", *sorted((DEMO / "positions").glob("*.csv"))]:
         with open(path, encoding="ascii") as fh:
             assert fh.readline().strip() == "portfolio,instrument,quantity", path.name
@@ -196,7 +199,7 @@ def test_dated_positions_differ_by_one_quantity():
 
 
 def test_books_are_sized_and_hedged(prices, instruments):
-    held = _positions(DEMO / "positions.csv")
+    held = {k: q for k, q in _positions(DEMO / "positions.csv").items() if k[1] in instruments}
     last = {name: closes[-1] for name, (_, closes) in prices.items()}
     fx = {"EUR": 1.0, "USD": last["FX.USD"]}
     gross = defaultdict(float)
@@ -402,3 +405,14 @@ def test_garch_settings_have_a_finite_fourth_moment():
         k = stats.t(nu).stats(moments="k") + 3.0  # scipy gives excess kurtosis
         assert k == pytest.approx(3 + 6 / (nu - 4))
         assert beta**2 + 2 * alpha * beta + k * alpha**2 < 1, (alpha, beta, nu)
+
+
+def test_option_overlay_is_a_protective_put_on_a_held_share():
+    rows = [r for r in _rows(DEMO / "instruments.csv") if r["asset_class"] == "option"]
+    assert len(rows) == 1
+    put = rows[0]
+    assert put["option_type"] == "put" and put["expiry"] == "2025-06-30"
+    held = _positions(DEMO / "positions.csv")
+    assert held[("alder_long_only", put["instrument"])] == held[("alder_long_only", put["underlying"])]
+    closes = [float(r["close"]) for r in _rows(DEMO / "prices" / "equities_eur.csv") if r["instrument"] == put["underlying"]]
+    assert float(put["strike"]) == pytest.approx(0.9 * closes[-1], abs=0.01)

@@ -10,6 +10,7 @@ rule aggregate:
         figures=estimate_files(),
         quality=quality_files(),
         records=record_files(),
+        **extra_table_files(),
     output:
         receipt=result_path("aggregate.json"),
     log:
@@ -23,5 +24,7 @@ rule aggregate:
         database=result_path("risk.duckdb"),
         config=config_snapshot(),
         code=code_version("aggregate", "database", "figures", "provenance", "ingest"),
+    conda:
+        ENV
     script:
         "../scripts/aggregate.py"

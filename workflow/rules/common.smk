@@ -9,6 +9,7 @@ SRC = Path(workflow.basedir) / "workflow" / "src" / "tailtrace"
 DATA = Path(config["data_dir"])
 RESULTS = Path(config["results_dir"])
 SAFE_NAME = "[A-Za-z0-9][A-Za-z0-9_.-]*"
+ENV = "../envs/tailtrace.yaml"  # used only with --sdm conda
 
 
 wildcard_constraints:
@@ -106,7 +107,10 @@ def estimator_modules(method):
 
 
 def estimate_files():
-    return [result_path("estimates", f"{m}.parquet") for m in config["methods"]]
+    files = [result_path("estimates", f"{m}.parquet") for m in config["methods"]]
+    if stress_enabled():
+        files.append(result_path("stress", "stressed_figures.parquet"))
+    return files
 
 
 def quality_files():
@@ -116,6 +120,7 @@ def quality_files():
 def record_files():
     rules = ["ingest_instruments", "ingest_positions", "build_returns", "build_scenarios"]
     rules += [f"estimate_{m}" for m in config["methods"]]
+    rules += ["stress"] if stress_enabled() else []
     return [prov_path(r) for r in rules] + [prov_path("ingest_prices", f"{n}.json") for n in price_names()]
 
 
@@ -125,3 +130,30 @@ def market_outputs():
 
 def config_snapshot():
     return as_json(config)
+
+
+def repo_path(path):
+    """A config path: absolute as given, relative ones from the repository root."""
+    p = Path(path)
+    return str(p if p.is_absolute() else Path(workflow.basedir) / p)
+
+
+def stress_enabled():
+    return bool(config["stress"]["enabled"])
+
+
+def stress_settings():
+    skip = {"enabled", "windows_file", "shocks_file", "stressed_methods"}
+    return {k: v for k, v in config["stress"].items() if k not in skip}
+
+
+def extra_table_files():
+    """DuckDB table name -> Parquet file the aggregate stores besides the figures."""
+    files = {"sensitivities": result_path("scenarios", "sensitivities.parquet")}
+    if stress_enabled():
+        files.update({
+            "stress_results": result_path("stress", "stress_results.parquet"),
+            "liquidity_es": result_path("stress", "liquidity_es.parquet"),
+            "stressed_windows": result_path("stress", "stressed_windows.parquet"),
+        })
+    return files

@@ -6,8 +6,10 @@ for _method in config["methods"]:
         name:
             f"estimate_{_method}"
         input:
-            returns=market_outputs()["returns"],
+            **market_outputs(),
             exposures=rules.build_scenarios.output.exposures,
+            positions=rules.ingest_positions.output.positions,
+            instruments=rules.ingest_instruments.output.instruments,
         output:
             figures=result_path("estimates", f"{_method}.parquet"),
             prov=prov_path(f"estimate_{_method}"),
@@ -24,9 +26,14 @@ for _method in config["methods"]:
             horizons=config["horizons_days"],
             window_days=config["window_days"],
             currency=config["base_currency"],
+            positions_file=data_path("positions"),
+            instruments_file=data_path("instruments"),
             options=method_options(_method),
             seed=method_seed(_method),
-            code=code_version(*estimator_modules(_method), "scenarios", "figures", "pipeline", "provenance"),
+            code=code_version(*estimator_modules(_method), "scenarios", "market", "options", "figures", "pipeline",
+                              "provenance"),
             libs=lib_versions("numpy", "scipy"),
+        conda:
+            ENV
         script:
             "../scripts/estimate.py"

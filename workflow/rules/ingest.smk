@@ -16,6 +16,8 @@ rule ingest_instruments:
         runtime=10,
     params:
         code=code_version("csvread", "reference", "errors", "pipeline", "provenance"),
+    conda:
+        ENV
     script:
         "../scripts/ingest_instruments.py"
 
@@ -36,6 +38,8 @@ rule ingest_positions:
         runtime=10,
     params:
         code=code_version("csvread", "reference", "errors", "pipeline", "provenance"),
+    conda:
+        ENV
     script:
         "../scripts/ingest_positions.py"
 
@@ -58,5 +62,7 @@ rule ingest_prices:
     params:
         stale_days=config["data_quality"]["stale_days"],
         code=code_version("csvread", "ingest", "errors", "pipeline", "provenance"),
+    conda:
+        ENV
     script:
         "../scripts/ingest_prices.py"

@@ -21,6 +21,8 @@ rule build_returns:
         max_fill_days=config["returns"]["max_fill_days"],
         instruments_file=data_path("instruments"),
         code=code_version("market", "ingest", "reference", "errors", "pipeline", "provenance"),
+    conda:
+        ENV
     script:
         "../scripts/build_returns.py"
 
@@ -29,9 +31,11 @@ rule build_scenarios:
     input:
         **market_outputs(),
         positions=rules.ingest_positions.output.positions,
+        instruments=rules.ingest_instruments.output.instruments,
     output:
         exposures=result_path("scenarios", "exposures.parquet"),
         pnl=result_path("scenarios", "pnl.parquet"),
+        sensitivities=result_path("scenarios", "sensitivities.parquet"),
         prov=prov_path("build_scenarios"),
     log:
         log_path("build_scenarios"),
@@ -44,6 +48,10 @@ rule build_scenarios:
         as_of=as_json(config["as_of"]),
         window_days=config["window_days"],
         positions_file=data_path("positions"),
-        code=code_version("scenarios", "market", "estimators/base", "errors", "pipeline", "provenance"),
+        instruments_file=data_path("instruments"),
+        base_currency=config["base_currency"],
+        code=code_version("scenarios", "market", "options", "estimators/base", "errors", "pipeline", "provenance"),
+    conda:
+        ENV
     script:
         "../scripts/build_scenarios.py"

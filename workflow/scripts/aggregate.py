@@ -5,7 +5,7 @@ from tailtrace.provenance import setup_logging
 
 setup_logging(snakemake)  # noqa: F821 (injected by Snakemake)
 
-from tailtrace.aggregate import aggregate  # noqa: E402
+from tailtrace.aggregate import EXTRA_TABLES, aggregate  # noqa: E402
 
 
 def main(smk) -> None:
@@ -14,6 +14,7 @@ def main(smk) -> None:
         figure_files=list(smk.input.figures),
         quality_files=list(smk.input.quality),
         record_files=list(smk.input.records),
+        extra_tables={name: [smk.input[name]] for name in EXTRA_TABLES if name in smk.input.keys()},
         config_snapshot=json.loads(smk.params.config),
     )
     with open(smk.output.receipt, "w") as fh:

@@ -17,7 +17,10 @@ from .figures import FIGURE_SCHEMA
 from .ingest import QUALITY_SCHEMA
 from .provenance import git_state, package_versions, read_records, run_id
 
-__all__ = ["FIGURE_KEY", "aggregate", "provenance_rows"]
+__all__ = ["FIGURE_KEY", "EXTRA_TABLES", "aggregate", "provenance_rows"]
+
+# Tables other steps produce, stored beside the figures and replaced by as_of.
+EXTRA_TABLES = ("sensitivities", "stress_results", "liquidity_es", "stressed_windows")
 
 FIGURE_KEY = ("as_of", "portfolio", "method", "confidence", "horizon_days")
 

@@ -28,6 +28,7 @@ __all__ = [
     "load_returns",
     "as_of_seed",
     "parse_json_param",
+    "run_stress_step",
 ]
 
 log = logging.getLogger("tailtrace")
@@ -121,15 +122,36 @@ def _positions_for(positions: pa.Table, as_of: np.datetime64, default_file: str)
     return undated, str(undated.column("source")[0])
 
 
-def build_scenarios(market_files: Mapping[str, str], positions: str, outputs: Mapping[str, str], *,
-                    as_of: Any, window_days: int, positions_file: str) -> list[str]:
-    """Resolve as_of dates, value today's holdings, write exposures and 1-day P&L."""
+def _market_for_books(market_files: Mapping[str, str]) -> MarketData:
     from .market import market_from_tables
-    from .scenarios import Holdings, build_sample, exposures_table, pnl_table, resolve_as_of
 
-    market = market_from_tables({k: pq.read_table(market_files[k]) for k in ("local", "base", "observed", "returns")})
+    return market_from_tables({k: pq.read_table(market_files[k]) for k in ("local", "base", "observed", "returns")})
+
+
+def books_for(market: MarketData, positions: pa.Table, instruments: pa.Table, dates: Sequence[np.datetime64], *,
+              base_currency: str, positions_file: str, instruments_file: str) -> list:
+    """The book of every as_of, from its dated positions file or the undated one."""
+    from .scenarios import make_book
+
+    books = []
+    for day in dates:  # a handful of as_of dates; each book is vectorised
+        part, source = _positions_for(positions, day, positions_file)
+        books.append(make_book(day, part, source, market, instruments, base_currency=base_currency,
+                               instruments_file=instruments_file))
+    return books
+
+
+def build_scenarios(market_files: Mapping[str, str], positions: str, instruments: str, outputs: Mapping[str, str], *,
+                    as_of: Any, window_days: int, positions_file: str, instruments_file: str,
+                    base_currency: str) -> list[str]:
+    """Resolve as_of dates, value today's holdings, write exposures, sensitivities and 1-day P&L."""
+    from .scenarios import build_sample, option_instruments, pnl_table, resolve_as_of
+
+    market = _market_for_books(market_files)
     pos = pq.read_table(positions)
-    held = sorted(set(pos.column("instrument").to_pylist()))
+    instr = pq.read_table(instruments)
+    options = option_instruments(instr)
+    held = sorted(set(pos.column("instrument").to_pylist()) - options)
     missing = [i for i in held if i not in market.instruments]
     if missing:
         rows = pos.filter(pa.compute.equal(pos.column("instrument"), missing[0]))
@@ -137,17 +159,23 @@ def build_scenarios(market_files: Mapping[str, str], positions: str, outputs: Ma
                          file=str(rows.column("source")[0]), row=int(rows.column("row")[0].as_py()),
                          column="instrument", value=missing[0])
     dates = resolve_as_of(as_of, market, held)
-    exposures, pnls = [], []
-    for day in dates:  # a handful of as_of dates; each step is vectorised
-        part, source = _positions_for(pos, day, positions_file)
-        holdings = Holdings.from_table(day, part, source)
-        exp = exposures_table(holdings, market)
-        sample = build_sample(market, exp, day, window_days)
-        exposures.append(exp)
-        pnls.append(pnl_table(sample))
-    write_parquet(pa.concat_tables(exposures), outputs["exposures"])
+    books = books_for(market, pos, instr, dates, base_currency=base_currency, positions_file=positions_file,
+                      instruments_file=instruments_file)
+    pnls = [pnl_table(build_sample(market, book, window_days)) for book in books]
+    write_parquet(pa.concat_tables([b.exposures for b in books]), outputs["exposures"])
     write_parquet(pa.concat_tables(pnls), outputs["pnl"])
+    sens = [b.sensitivities for b in books if b.sensitivities is not None]
+    write_parquet(pa.concat_tables(sens) if sens else _empty_sensitivities(), outputs["sensitivities"])
     return [str(d) for d in dates]
+
+
+def _empty_sensitivities() -> pa.Table:
+    from .options.book import SENSITIVITY_COLUMNS
+
+    fields = [("as_of", pa.date32())] + [(c, pa.float64()) for c in SENSITIVITY_COLUMNS]
+    text = {"portfolio", "instrument", "underlying", "model", "currency", "option_type"}
+    fields = [(n, pa.string() if n in text else pa.date32() if n == "expiry" else t) for n, t in fields]
+    return pa.schema(fields).empty_table()
 
 
 def as_of_seed(seed: int, as_of: np.datetime64) -> np.random.Generator:
@@ -156,26 +184,28 @@ def as_of_seed(seed: int, as_of: np.datetime64) -> np.random.Generator:
     return np.random.default_rng(np.random.SeedSequence([int(seed), day]))
 
 
-def run_estimator(returns: str, exposures: str, out: str, *, method: str, confidences: Sequence[float],
-                  horizons: Sequence[int], window_days: int, options: Mapping[str, Any], seed: int,
-                  currency: str) -> dict[str, Any]:
+def run_estimator(market_files: Mapping[str, str], exposures: str, positions: str, instruments: str, out: str, *,
+                  method: str, confidences: Sequence[float], horizons: Sequence[int], window_days: int,
+                  options: Mapping[str, Any], seed: int, currency: str, positions_file: str,
+                  instruments_file: str) -> dict[str, Any]:
     """Run one method for every as_of in the exposures file."""
     from .estimators.registry import get_estimator
     from .figures import estimate_table
     from .scenarios import build_sample
 
     estimator = get_estimator(method)
-    market = load_returns(returns)
-    exp = pq.read_table(exposures)
-    days = sorted(set(exp.column("as_of").to_numpy().astype("datetime64[D]")))
+    market = _market_for_books(market_files)
+    days = sorted(set(pq.read_table(exposures, columns=["as_of"]).column("as_of").to_numpy().astype("datetime64[D]")))
+    books = books_for(market, pq.read_table(positions), pq.read_table(instruments), days, base_currency=currency,
+                      positions_file=positions_file, instruments_file=instruments_file)
     tables, notes = [], {}
-    for day in days:
-        sample = build_sample(market, exp, day, window_days)
-        result = estimator(sample, confidences, horizons, options=options, seed=as_of_seed(seed, day))
-        tables.append(estimate_table(result, as_of=day, portfolios=sample.portfolios, method=method,
+    for book in books:
+        sample = build_sample(market, book, window_days)
+        result = estimator(sample, confidences, horizons, options=options, seed=as_of_seed(seed, book.as_of))
+        tables.append(estimate_table(result, as_of=book.as_of, portfolios=sample.portfolios, method=method,
                                      confidences=confidences, horizons=horizons, currency=currency))
-        notes[str(day)] = {"window_first": str(sample.dates[0]), "window_last": str(sample.dates[-1]),
-                           "n_obs": sample.n_obs}
+        notes[str(book.as_of)] = {"window_first": str(sample.dates[0]), "window_last": str(sample.dates[-1]),
+                                  "n_obs": sample.n_obs, "instruments": list(sample.instruments)}
     write_parquet(pa.concat_tables(tables), out)
     return notes
 
@@ -184,3 +214,77 @@ def parse_json_param(value: str | Mapping[str, Any]) -> Any:
     return json.loads(value) if isinstance(value, str) else value
 
 
+
+
+def _rows_table(rows: list[dict], columns: Mapping[str, str]) -> pa.Table:
+    types = {"DATE": pa.date32(), "VARCHAR": pa.string(), "DOUBLE": pa.float64(), "INTEGER": pa.int32(),
+             "BIGINT": pa.int64(), "BOOLEAN": pa.bool_()}
+    schema = pa.schema([(name, types[kind.split()[0]]) for name, kind in columns.items()])
+    clean = [{k: (v.item() if isinstance(v, np.generic) else v) for k, v in r.items()} for r in rows]
+    return pa.Table.from_pylist(clean, schema=schema)
+
+
+def run_stress_step(market_files: Mapping[str, str], exposures: str, positions: str, instruments: str,
+                    windows_file: str, shocks_file: str, outputs: Mapping[str, str], *, settings: Mapping[str, Any],
+                    stressed_methods: Sequence[str], method_options: Mapping[str, Mapping[str, Any]],
+                    confidences: Sequence[float], horizons: Sequence[int], window_days: int, seed: int,
+                    currency: str, positions_file: str, instruments_file: str) -> dict[str, Any]:
+    """Stress figures of every as_of, and the stressed-calibration figures.
+
+    Stressed calibration: each method in ``stressed_methods`` is rerun on the
+    worst window found in the history (``stress.stressed_window``) and
+    written with the method name ``<method>_stressed``.
+    """
+    from .estimators.registry import get_estimator
+    from .figures import estimate_table
+    from .scenarios import build_sample
+    from .stress.historical import load_stress_windows
+    from .stress.instruments import InstrumentMeta
+    from .stress.liquidity import LIQUIDITY_ES_COLUMNS
+    from .stress.records import records_to_frame
+    from .stress.run import STRESSED_WINDOW_COLUMNS, StressSettings, run_stress, stressed_samples
+    from .stress.shocks import load_shock_scenarios
+
+    market = _market_for_books(market_files)
+    instr = pq.read_table(instruments)
+    asset = dict(zip(instr.column("instrument").to_pylist(), instr.column("asset_class").to_pylist()))
+    ccy = dict(zip(instr.column("instrument").to_pylist(), instr.column("currency").to_pylist()))
+    days = sorted(set(pq.read_table(exposures, columns=["as_of"]).column("as_of").to_numpy().astype("datetime64[D]")))
+    books = books_for(market, pq.read_table(positions), instr, days, base_currency=currency,
+                      positions_file=positions_file, instruments_file=instruments_file)
+    windows = load_stress_windows(windows_file)
+    scenarios = load_shock_scenarios(shocks_file)
+    config = StressSettings.from_config(settings)
+    records, liquidity, scans, figures, notes = [], [], [], [], {}
+    for book in books:
+        sample = build_sample(market, book, window_days)
+        meta = InstrumentMeta.from_columns(sample.instruments, [asset[i] for i in sample.instruments],
+                                           [ccy[i] for i in sample.instruments], currency)
+        row = int(np.searchsorted(market.dates, book.as_of))
+        local = market.local[row, [market.column(i) for i in sample.instruments]]
+        run = run_stress(sample, sample.history_dates, meta, windows=windows, scenarios=scenarios, settings=config,
+                         prices=local)
+        records += run.records
+        liquidity += run.liquidity_rows
+        scans += run.stressed_window_rows
+        for stressed in stressed_samples(sample, sample.history_dates, run.stressed):
+            for method in stressed_methods:
+                result = get_estimator(method)(stressed, confidences, horizons, options=method_options.get(method, {}),
+                                               seed=as_of_seed(seed, book.as_of))
+                figures.append(estimate_table(result, as_of=book.as_of, portfolios=stressed.portfolios,
+                                              method=f"{method}_stressed", confidences=confidences,
+                                              horizons=horizons, currency=currency))
+        notes[str(book.as_of)] = run.stressed_window_rows
+    results = pa.Table.from_pandas(records_to_frame(records), preserve_index=False)
+    results = results.cast(pa.schema([(f.name, pa.date32() if f.name in ("as_of", "start_date", "end_date") else f.type)
+                                      for f in results.schema]))
+    write_parquet(results.replace_schema_metadata(None), outputs["results"])
+    write_parquet(_rows_table(liquidity, LIQUIDITY_ES_COLUMNS), outputs["liquidity"])
+    write_parquet(_rows_table(scans, STRESSED_WINDOW_COLUMNS), outputs["windows"])
+    if figures:
+        write_parquet(pa.concat_tables(figures), outputs["figures"])
+    else:
+        from .figures import FIGURE_SCHEMA
+
+        write_parquet(FIGURE_SCHEMA.empty_table(), outputs["figures"])
+    return notes

@@ -21,6 +21,8 @@ __all__ = [
     "build_sample",
     "pnl_table",
     "holdings_from_exposures",
+    "Book",
+    "make_book",
 ]
 
 EXPOSURE_SCHEMA = pa.schema(
@@ -59,6 +61,120 @@ class Holdings:
         qty[pi, ii] = table.column("quantity").to_numpy()
         rows[pi, ii] = table.column("row").to_numpy()
         return cls(np.datetime64(as_of, "D"), tuple(map(str, portfolios)), tuple(map(str, instruments)), qty, source_file, rows)
+
+
+@dataclass(frozen=True)
+class Book:
+    """Today's holdings of every portfolio, ready for revaluation.
+
+    ``instruments`` are the risk-factor columns (held linear instruments,
+    option underlyings and the FX series options need); ``values`` are the
+    first-order base-currency exposures to them (plain values for a linear
+    book); ``extra`` holds the optional RiskSample fields of option books.
+    """
+
+    as_of: np.datetime64
+    portfolios: tuple[str, ...]
+    instruments: tuple[str, ...]
+    values: np.ndarray
+    revalue: Any
+    extra: Mapping[str, Any]
+    exposures: pa.Table
+    sensitivities: pa.Table | None
+    sources: Mapping[str, tuple[str, int]]
+
+    def locate(self, instrument: str) -> tuple[str, int | None]:
+        """Positions file and row that make the book depend on ``instrument``."""
+        file, row = self.sources.get(instrument, (self.exposures.column("positions_file")[0].as_py(), None))
+        return file, row
+
+
+def option_instruments(instruments: pa.Table) -> set[str]:
+    """Instruments described as options (asset_class option, or option terms filled)."""
+    names = instruments.column("instrument").to_pylist()
+    flags = [a == "option" for a in instruments.column("asset_class").to_pylist()]
+    if "underlying" in instruments.column_names:
+        flags = [f or bool(u) for f, u in zip(flags, instruments.column("underlying").to_pylist())]
+    return {n for n, f in zip(names, flags) if f}
+
+
+def make_book(as_of: np.datetime64, positions: pa.Table, source_file: str, market: MarketData,
+              instruments: pa.Table, *, base_currency: str, instruments_file: str) -> Book:
+    """Build the book of one as_of from its positions file.
+
+    Linear instruments are valued at the base-currency close of as_of;
+    options (rows of instruments.csv with option terms) are priced and
+    revalued in full by :mod:`tailtrace.options`.
+    """
+    as_of = np.datetime64(as_of, "D")
+    options = option_instruments(instruments)
+    held = set(positions.column("instrument").to_pylist())
+    if not held & options:
+        holdings = Holdings.from_table(as_of, positions, source_file)
+        exp = exposures_table(holdings, market)
+        portfolios, names, values, _ = holdings_from_exposures(exp, as_of)
+        sources = {i: (source_file, int(r)) for i, r in zip(exp.column("instrument").to_pylist(),
+                                                            exp.column("positions_row").to_pylist())}
+        return Book(as_of, portfolios, names, values, linear_revalue(values), {}, exp, None, sources)
+    return _option_book(as_of, positions, source_file, market, instruments, options, base_currency=base_currency,
+                        instruments_file=instruments_file)
+
+
+def _option_book(as_of, positions, source_file, market, instruments, options, *, base_currency, instruments_file):
+    import pandas as pd
+
+    from .options import build_book, validate_option_rows
+    from .reference import fx_instrument
+
+    instr_df = instruments.drop_columns(["row"]).to_pandas()
+    specs = validate_option_rows(instr_df, file=instruments_file, known_instruments=market.instruments, as_of=as_of)
+    pos_df = positions.select(["portfolio", "instrument", "quantity"]).to_pandas()
+    rows = dict(zip(positions.column("instrument").to_pylist(), positions.column("row").to_pylist()))
+    row_of = dict(zip(zip(positions.column("portfolio").to_pylist(), positions.column("instrument").to_pylist()),
+                      positions.column("row").to_pylist()))
+    ccy = dict(zip(instruments.column("instrument").to_pylist(), instruments.column("currency").to_pylist()))
+    held_options = [i for i in dict.fromkeys(pos_df["instrument"]) if i in options]
+    under = dict(zip(specs.instrument, specs.underlying))
+    linear = sorted(set(pos_df["instrument"]) - options)
+    needed = set(linear)
+    sources = {i: (source_file, int(rows[i])) for i in linear}
+    for o in held_options:
+        needed.add(under[o])
+        sources.setdefault(under[o], (source_file, int(rows[o])))
+        if ccy[o] != base_currency:
+            needed.add(fx_instrument(ccy[o]))
+            sources.setdefault(fx_instrument(ccy[o]), (source_file, int(rows[o])))
+    columns = tuple(sorted(needed))
+    missing = [c for c in columns if c not in market.instruments]
+    if missing:
+        file, row = sources[missing[0]]
+        raise InputError("no price series for this instrument in any price file", file=file, row=row,
+                         column="instrument", value=missing[0])
+    r = int(np.searchsorted(market.dates, as_of))
+    prices = {c: float(market.base[r, market.column(c)]) for c in columns}
+    portfolios = tuple(sorted(set(pos_df["portfolio"])))
+    book = build_book(pos_df, instr_df, prices, as_of=as_of, columns=columns, base_currency=base_currency,
+                      options=specs, portfolios=portfolios, positions_file=source_file,
+                      instruments_file=instruments_file, prices_file="prices/")
+    sens = book.sensitivities.copy()
+    sens.insert(0, "as_of", pd.Timestamp(as_of).date())
+    sens_table = pa.Table.from_pandas(sens, preserve_index=False)
+    qty = sens["quantity"].to_numpy(dtype=float)
+    value = sens["value"].to_numpy(dtype=float)
+    exp = pa.table({
+        "as_of": pa.array(np.full(len(sens), as_of), type=pa.date32()),
+        "portfolio": pa.array(sens["portfolio"].astype(str).tolist(), type=pa.string()),
+        "instrument": pa.array(sens["instrument"].astype(str).tolist(), type=pa.string()),
+        "quantity": pa.array(qty),
+        "price_base": pa.array(np.divide(value, qty, out=np.zeros_like(value), where=qty != 0)),
+        "value_base": pa.array(value),
+        "positions_file": pa.array([source_file] * len(sens), type=pa.string()),
+        "positions_row": pa.array([int(row_of[(p, i)]) for p, i in zip(sens["portfolio"], sens["instrument"])],
+                                  type=pa.int64()),
+    }, schema=EXPOSURE_SCHEMA)
+    extra = {"exposures": book.exposures, "gammas": book.gammas, "thetas": book.thetas}
+    return Book(as_of, book.portfolios, book.instruments, book.exposures, book.revalue, extra, exp, sens_table,
+                sources)
 
 
 def last_common_date(market: MarketData, instruments: Sequence[str]) -> np.datetime64:
@@ -148,44 +264,45 @@ def holdings_from_exposures(exposures: pa.Table, as_of: np.datetime64) -> tuple[
     return tuple(map(str, portfolios)), tuple(map(str, instruments)), values, part
 
 
-def build_sample(market: MarketData, exposures: pa.Table, as_of: np.datetime64, window: int) -> RiskSample:
+def build_sample(market: MarketData, book: "Book", window: int) -> RiskSample:
     """The estimation sample of one as_of (window returns, holdings, P&L).
 
     Raises
     ------
     InputError
-        A held instrument has missing returns inside the window (too little
-        history, or a gap longer than the fill limit).
+        A risk factor of the book has missing returns inside the window (too
+        little history, or a gap longer than the fill limit).
     """
-    portfolios, instruments, values, part = holdings_from_exposures(exposures, as_of)
-    idx = _window_index(market, np.datetime64(as_of, "D"), window)
-    cols = [market.column(i) for i in instruments]
+    as_of = np.datetime64(book.as_of, "D")
+    idx = _window_index(market, as_of, window)
+    cols = [market.column(i) for i in book.instruments]
     returns = market.log_returns[np.ix_(idx, cols)]
     bad = ~np.isfinite(returns)
     if bad.any():
         j = int(np.flatnonzero(bad.any(axis=0))[0])
         first_bad = market.dates[idx[np.flatnonzero(bad[:, j])[0]]]
-        rows = part.filter(pc.equal(part.column("instrument"), instruments[j]))
+        file, row = book.locate(book.instruments[j])
         raise InputError(
-            f"instrument lacks prices inside the {window}-day window ending {as_of} (first missing return {first_bad}); "
-            "it has too little history or a gap longer than the fill limit",
-            file=str(rows.column("positions_file")[0]), row=int(rows.column("positions_row")[0].as_py()),
-            column="instrument", value=instruments[j])
+            f"instrument {book.instruments[j]} lacks prices inside the {window}-day window ending {as_of} "
+            f"(first missing return {first_bad}); it has too little history or a gap longer than the fill limit",
+            file=file, row=row, column="instrument", value=book.instruments[j])
     end = int(idx[-1]) + 1
     start_hist = int(np.flatnonzero(np.isfinite(market.log_returns[:end, cols]).all(axis=1))[0])
     history = market.log_returns[start_hist:end, cols]
-    history = history[np.isfinite(history).all(axis=1)]
-    revalue = linear_revalue(values)
+    complete = np.isfinite(history).all(axis=1)
+    history, history_dates = history[complete], market.dates[start_hist:end][complete]
     return RiskSample(
-        as_of=np.datetime64(as_of, "D"),
-        portfolios=portfolios,
-        instruments=instruments,
+        as_of=as_of,
+        portfolios=book.portfolios,
+        instruments=book.instruments,
         dates=market.dates[idx],
         returns=returns,
         history=history,
-        values=values,
-        pnl=revalue(returns, 1),
-        revalue=revalue,
+        values=book.values,
+        pnl=book.revalue(returns, 1),
+        revalue=book.revalue,
+        history_dates=history_dates,
+        **book.extra,
     )
 
 

@@ -76,6 +76,18 @@ class RiskSample:
     revalue : callable
         ``revalue(log_shocks (S, N), horizon_days) -> (P, S)`` P&L; full
         revaluation of the book. Linear books use :func:`linear_revalue`.
+    history_dates : (H,) datetime64[D] or None
+        Dates of the ``history`` rows.
+    exposures : (P, N) float or None
+        First-order sensitivities ``∂P&L/∂r`` to the log returns (base
+        currency; option delta-equivalents plus linear values). None for a
+        linear book, where they equal ``values``.
+    gammas : (P, N, N) float or None
+        Second-order sensitivities ``∂²P&L/∂r∂r'`` in log-return space.
+        None for a linear book, where they are ``diag(values)``.
+    thetas : (P,) float or None
+        Base-currency P&L of one calendar day of ageing, all else fixed.
+        None when nothing ages (linear book).
     """
 
     as_of: np.datetime64
@@ -87,6 +99,10 @@ class RiskSample:
     values: np.ndarray
     pnl: np.ndarray
     revalue: Callable[[np.ndarray, int], np.ndarray] = field(repr=False)
+    history_dates: np.ndarray | None = None
+    exposures: np.ndarray | None = None
+    gammas: np.ndarray | None = None
+    thetas: np.ndarray | None = None
 
     @property
     def n_obs(self) -> int:

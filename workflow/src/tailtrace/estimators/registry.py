@@ -14,6 +14,8 @@ METHODS: dict[str, tuple[str, str]] = {
     "historical": ("tailtrace.estimators.historical", "estimate"),
     "historical_overlapping": ("tailtrace.estimators.historical", "estimate_overlapping"),
     "monte_carlo": ("tailtrace.estimators.monte_carlo", "estimate"),
+    "delta_normal": ("tailtrace.estimators.delta_normal", "estimate"),
+    "delta_gamma": ("tailtrace.estimators.delta_gamma", "estimate"),
 }
 
 
