@@ -9,6 +9,9 @@ from tailtrace.configuration import coerce_cli_values
 min_version("9.0")
 
 
+report: "workflow/report/workflow.rst"
+
+
 configfile: str(Path(workflow.basedir) / "config" / "config.yaml")
 
 
@@ -23,9 +26,11 @@ include: "workflow/rules/returns.smk"
 include: "workflow/rules/estimate.smk"
 include: "workflow/rules/stress.smk"
 include: "workflow/rules/aggregate.smk"
+include: "workflow/rules/report.smk"
 
 
 rule all:
     default_target: True
     input:
         rules.aggregate.output.receipt,
+        rules.report.output.html,

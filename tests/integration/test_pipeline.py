@@ -50,11 +50,13 @@ def test_risk_figures_schema_and_rows(run):
     for name, kind in expected.items():
         assert cols[name] == kind
     n, distinct = con.execute("SELECT count(*), count(DISTINCT (as_of, portfolio, method, confidence, horizon_days)) "
-                              "FROM risk_figures").fetchone()
+                              "FROM risk_figures WHERE method NOT LIKE '%_stressed'").fetchone()
     assert n == distinct == 2 * 4 * 3 * 2  # portfolios x methods x confidences x horizons
+    stressed = con.execute("SELECT DISTINCT method FROM risk_figures WHERE method LIKE '%_stressed' ORDER BY 1").fetchall()
+    assert stressed == [("historical_stressed",), ("parametric_normal_stressed",)]
     assert con.execute("SELECT min(var) > 0, bool_and(es >= var - 1e-9), any_value(currency) FROM risk_figures").fetchone() == (True, True, "EUR")
     scaling = dict(con.execute("SELECT method, string_agg(DISTINCT scaling, ',' ORDER BY scaling) FROM risk_figures "
-                               "WHERE horizon_days = 10 GROUP BY method").fetchall())
+                               "WHERE horizon_days = 10 AND method NOT LIKE '%_stressed' GROUP BY method").fetchall())
     assert scaling == {"parametric_normal": "sqrt_time", "historical": "sqrt_time",
                        "historical_overlapping": "overlapping", "monte_carlo": "simulated"}
     for table in ("provenance", "data_quality", "runs"):

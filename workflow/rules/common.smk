@@ -3,7 +3,7 @@ import json
 from importlib import metadata
 from pathlib import Path
 
-from tailtrace.hashing import source_hash
+from tailtrace.codeversion import code_version as _code_version
 
 SRC = Path(workflow.basedir) / "workflow" / "src" / "tailtrace"
 DATA = Path(config["data_dir"])
@@ -73,12 +73,8 @@ def positions_files():
 
 
 def code_version(*modules):
-    """Hash of the package modules a rule runs (Snakemake does not track imports)."""
-    paths = []
-    for m in modules:
-        target = SRC / m
-        paths += sorted(target.rglob("*.py")) if target.is_dir() else [target.with_suffix(".py")]
-    return source_hash(paths)
+    """Hash of the package modules a rule runs and what they import (Snakemake does not track imports)."""
+    return _code_version(SRC, modules)
 
 
 def lib_versions(*names):
@@ -102,8 +98,7 @@ def method_seed(method):
 def estimator_modules(method):
     from tailtrace.estimators.registry import METHODS
 
-    mod = METHODS[method][0].removeprefix("tailtrace.")
-    return ("estimators/base", "estimators/tail", "estimators/registry", mod.replace(".", "/"))
+    return ("estimators/registry", METHODS[method][0].removeprefix("tailtrace."))
 
 
 def estimate_files():
@@ -157,3 +152,9 @@ def extra_table_files():
             "stressed_windows": result_path("stress", "stressed_windows.parquet"),
         })
     return files
+
+
+def limits_input():
+    """The limits file as a named input, or nothing when report.limits is null."""
+    path = config["report"]["limits"]
+    return {"limits": repo_path(path)} if path else {}

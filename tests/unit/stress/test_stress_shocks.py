@@ -95,7 +95,12 @@ def test_same_level_clash_is_an_error(meta):
         resolve_scenarios([scen], meta, prices=np.ones(meta.n))
 
 
-def test_selector_matching_nothing_is_an_error(meta):
+def test_selector_matching_nothing_is_skipped_with_a_warning(meta):
+    with pytest.warns(ModelWarning, match="'FX.GBP' matches no instrument"):
+        resolve_scenarios([_scenario(("instrument", "FX.GBP", "relative", -0.2))], meta)
+
+
+def test_unknown_asset_class_is_an_error(meta):
     with pytest.raises(InputError, match=r"row 10, column 'asset_class'.*'equty' matches no instrument"):
         resolve_scenarios([_scenario(("asset_class", "equty", "relative", -0.2))], meta)
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import logging
 from pathlib import Path
@@ -275,8 +276,19 @@ def run_stress_step(market_files: Mapping[str, str], exposures: str, positions: 
                                            [ccy[i] for i in sample.instruments], currency)
         row = int(np.searchsorted(market.dates, book.as_of))
         local = market.local[row, [market.column(i) for i in sample.instruments]]
-        run = run_stress(sample, sample.history_dates, meta, windows=windows, scenarios=scenarios, settings=config,
-                         prices=local)
+        first, last = sample.history_dates[0], sample.history_dates[-1]
+        inside = [w for w in windows if first <= w.start and w.end <= last]
+        for w in windows:
+            if w not in inside:  # e.g. a backdated as_of before the episode: replay what the data allows
+                log.warning("stress window %s (%s to %s) lies outside the history of as_of %s (%s to %s); skipped",
+                            w.name, w.start, w.end, book.as_of, first, last)
+        settings_day = config
+        if len(sample.history) < config.stressed_length_days:
+            log.warning("history of as_of %s has %d days, fewer than the stressed window of %d: the whole history "
+                        "is used", book.as_of, len(sample.history), config.stressed_length_days)
+            settings_day = dataclasses.replace(config, stressed_length_days=len(sample.history))
+        run = run_stress(sample, sample.history_dates, meta, windows=inside, scenarios=scenarios,
+                         settings=settings_day, prices=local)
         records += run.records
         liquidity += run.liquidity_rows
         scans += run.stressed_window_rows

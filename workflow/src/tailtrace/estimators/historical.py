@@ -7,6 +7,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
+from .bands import DEFAULT_BAND_LEVEL, order_statistic_band, sqrt_time_band
 from .base import SCALING_NONE, SCALING_OVERLAPPING, SCALING_SQRT_TIME, RiskEstimate, RiskSample
 from .tail import empirical_var_es, tail_count
 
@@ -39,8 +40,11 @@ def estimate(
     es = es1[:, :, None] * root_h
     scaling = tuple(SCALING_NONE if h == 1 else SCALING_SQRT_TIME for h in horizons)
     ks = {str(c): tail_count(sample.n_obs, c) for c in confidences}
+    level = float(options.get("band_level", DEFAULT_BAND_LEVEL))
+    lo, hi = sqrt_time_band(-sample.pnl, confidences, horizons, level)
     return RiskEstimate(
-        var=var, es=es, scaling=scaling, n_obs=np.full(len(horizons), sample.n_obs), diagnostics={"k": ks}
+        var=var, es=es, scaling=scaling, n_obs=np.full(len(horizons), sample.n_obs), var_lo=lo, var_hi=hi,
+        diagnostics={"k": ks, "band": "order_statistic", "band_level": level},
     )
 
 
@@ -70,11 +74,16 @@ def estimate_overlapping(
     P, C, H = len(sample.portfolios), len(confidences), len(horizons)
     var = np.empty((P, C, H))
     es = np.empty((P, C, H))
+    lo, hi = np.empty((P, C, H)), np.empty((P, C, H))
     n_obs = np.empty(H, dtype=int)
+    level = float(options.get("band_level", DEFAULT_BAND_LEVEL))
     for j, h in enumerate(horizons):  # a handful of horizons, each vectorised
         shocks = overlapping_log_returns(sample.returns, int(h))
         losses = -sample.revalue(shocks, int(h))
         var[:, :, j], es[:, :, j] = empirical_var_es(losses, confidences)
+        # assumes independent observations: too narrow for overlapping h-day returns
+        lo[:, :, j], hi[:, :, j] = order_statistic_band(losses, confidences, level)
         n_obs[j] = shocks.shape[0]
     scaling = tuple(SCALING_NONE if h == 1 else SCALING_OVERLAPPING for h in horizons)
-    return RiskEstimate(var=var, es=es, scaling=scaling, n_obs=n_obs)
+    return RiskEstimate(var=var, es=es, scaling=scaling, n_obs=n_obs, var_lo=lo, var_hi=hi,
+                        diagnostics={"band": "order_statistic (independence assumed)", "band_level": level})

@@ -9,7 +9,17 @@ import numpy as np
 from .base import SCALING_NONE, SCALING_SIMULATED, RiskEstimate, RiskSample, as_generator
 from .tail import batch_standard_errors, empirical_var_es
 
-__all__ = ["estimate", "covariance_factor", "simulate_log_paths"]
+__all__ = [
+    "estimate",
+    "estimate_student_t",
+    "covariance_factor",
+    "simulate_log_paths",
+    "simulated_shocks",
+    "mahalanobis_sq",
+    "DISTRIBUTIONS",
+]
+
+DISTRIBUTIONS = ("normal", "t")
 
 
 def covariance_factor(returns: np.ndarray) -> np.ndarray:
@@ -28,11 +38,37 @@ def covariance_factor(returns: np.ndarray) -> np.ndarray:
     Built from the thin SVD of the demeaned returns, so it exists even when
     the covariance is singular (more instruments than observations) where a
     Cholesky factor would fail, and it costs O(r) per draw instead of O(N).
+    Each row's sign is fixed (largest entry positive): LAPACK's sign is
+    arbitrary and may flip when, say, a cash column of zeros is added, which
+    would change the simulated paths for the same seed.
     """
     centred = returns - returns.mean(axis=0)
     _, s, vt = np.linalg.svd(centred, full_matrices=False)
     keep = s > s[0] * 1e-12 if s.size and s[0] > 0 else np.zeros_like(s, dtype=bool)
-    return (s[keep, None] * vt[keep]) / np.sqrt(max(returns.shape[0] - 1, 1))
+    rows = vt[keep]
+    pivot = np.take_along_axis(rows, np.argmax(np.abs(rows), axis=1)[:, None], axis=1)
+    return (s[keep, None] * rows * np.where(pivot < 0, -1.0, 1.0)) / np.sqrt(max(returns.shape[0] - 1, 1))
+
+
+def mahalanobis_sq(returns: np.ndarray) -> tuple[np.ndarray, int]:
+    """Squared Mahalanobis distance of each demeaned window return.
+
+    Parameters
+    ----------
+    returns : (T, N) array
+
+    Returns
+    -------
+    d2 : (T,) array
+        ``(r_t − r̄)ᵀ Σ⁺ (r_t − r̄)`` with Σ⁺ the pseudo-inverse of the sample
+        covariance (ddof 1), so it exists when Σ is singular.
+    rank : int
+        Rank of Σ, the dimension of the distribution the distances live in.
+    """
+    centred = returns - returns.mean(axis=0)
+    u, s, _ = np.linalg.svd(centred, full_matrices=False)
+    keep = s > s[0] * 1e-12 if s.size and s[0] > 0 else np.zeros_like(s, dtype=bool)
+    return (returns.shape[0] - 1) * np.square(u[:, keep]).sum(axis=1), int(keep.sum())
 
 
 def simulate_log_paths(
@@ -41,8 +77,10 @@ def simulate_log_paths(
     steps: Sequence[int],
     paths: int,
     rng: np.random.Generator,
+    *,
+    dof: float | None = None,
 ) -> dict[int, np.ndarray]:
-    """Cumulative log returns of correlated daily GBM steps.
+    """Cumulative log returns of correlated daily steps.
 
     Parameters
     ----------
@@ -51,19 +89,92 @@ def simulate_log_paths(
     steps : horizons (days) at which to return the cumulative log return
     paths : number of paths S
     rng : numpy Generator
+    dof : float, optional
+        Degrees of freedom ν > 2 of multivariate Student-t daily steps;
+        None for normal steps (GBM in discrete time).
 
     Returns
     -------
     dict mapping each horizon to an (S, N) array of cumulative log returns.
+
+    Notes
+    -----
+    A t step is ``drift + Z F √((ν − 2)/W)`` with Z standard normal and
+    W ~ χ²_ν drawn once per path and day, so its covariance is ``FᵀF``.
+    The normal steps draw only Z, in the same order as before the t option.
+
+    References
+    ----------
+    McNeil, Frey & Embrechts, *Quantitative Risk Management*, 2005,
+    section 3.2 (normal variance mixtures).
     """
     wanted = sorted(set(int(s) for s in steps))
     cumulative = np.zeros((paths, factor.shape[1]))
     out: dict[int, np.ndarray] = {}
     for day in range(1, wanted[-1] + 1):  # daily steps, each vectorised over paths
-        cumulative += drift + rng.standard_normal((paths, factor.shape[0])) @ factor
+        step = rng.standard_normal((paths, factor.shape[0])) @ factor
+        if dof is not None:
+            step *= np.sqrt((dof - 2.0) / rng.chisquare(dof, size=paths))[:, None]
+        cumulative += drift + step
         if day in wanted:
             out[day] = cumulative.copy()
     return out
+
+
+def simulated_shocks(
+    sample: RiskSample,
+    horizons: Sequence[int],
+    options: Mapping[str, Any],
+    seed: int | np.random.Generator | None,
+) -> tuple[dict[int, np.ndarray], dict[str, Any]]:
+    """The simulated cumulative log returns :func:`estimate` revalues the book under.
+
+    Parameters
+    ----------
+    sample : RiskSample
+    horizons : sequence of int
+    options : mapping
+        See :func:`estimate`.
+    seed : int or Generator
+
+    Returns
+    -------
+    shocks : dict mapping each horizon to an (S, N) array
+    info : dict
+        JSON-serialisable settings and fitted values (``distribution``, ``dof``).
+    """
+    paths = int(options.get("paths", 10_000))
+    include_mean = bool(options.get("include_mean", False))
+    distribution = str(options.get("distribution", "normal"))
+    if distribution not in DISTRIBUTIONS:
+        raise ValueError(f"monte_carlo distribution must be one of {DISTRIBUTIONS}, got {distribution!r}")
+    rng = as_generator(seed)
+    factor = covariance_factor(sample.returns)
+    variances = np.einsum("rn,rn->n", factor, factor)
+    # for t steps E[exp(X)] is infinite, so −½σ² is a convention there (zero mean to second order)
+    drift = sample.returns.mean(axis=0) if include_mean else -0.5 * variances
+    info: dict[str, Any] = {"paths": paths, "include_mean": include_mean, "distribution": distribution}
+    dof = None
+    if distribution == "t":
+        dof, info["dof_fit"] = _student_t_dof(sample.returns, options)
+        info["dof"] = dof
+    return simulate_log_paths(drift, factor, horizons, paths, rng, dof=dof), info
+
+
+def _student_t_dof(returns: np.ndarray, options: Mapping[str, Any]) -> tuple[float, str]:
+    from .parametric_t import DOF_BOUNDS, fit_t_dof
+
+    bounds = tuple(float(b) for b in options.get("dof_bounds", DOF_BOUNDS))
+    if options.get("dof") is not None:
+        dof = float(options["dof"])
+        if not dof > 2.0:
+            raise ValueError(f"monte_carlo dof must exceed 2, got {dof}")
+        return dof, "fixed"
+    d2, rank = mahalanobis_sq(returns)
+    if rank == 0:
+        return bounds[1], "degenerate"
+    nu, fitted = fit_t_dof(d2[None, :], rank, bounds)
+    return float(nu[0]), "ml" if fitted[0] else "moment_fallback"
 
 
 def estimate(
@@ -80,7 +191,10 @@ def estimate(
     ----------
     options : mapping
         ``paths`` (int, default 10000), ``include_mean`` (bool, default
-        False), ``batches`` (int, default 10) for the standard errors.
+        False), ``batches`` (int, default 10) for the standard errors,
+        ``distribution`` ("normal" or "t", default "normal"), and for "t"
+        ``dof`` (fixed ν, default None: fitted) and ``dof_bounds`` (default
+        [2.1, 200]).
     seed : int or Generator
         Same seed, same figures.
 
@@ -94,19 +208,22 @@ def estimate(
     the empirical k-th worst loss and the mean of the k worst over the paths;
     their standard errors come from batch means.
 
+    With ``distribution = "t"`` the daily steps are multivariate Student-t
+    with covariance Σ (:func:`simulate_log_paths`). ν is fitted by maximum
+    likelihood to the window returns with mean and covariance fixed at their
+    sample values: the profile likelihood of the squared Mahalanobis
+    distances in the rank of Σ (:func:`parametric_t.fit_t_dof`). One ν serves
+    every instrument, so all margins share the same tail weight.
+
     References
     ----------
     Jorion, *Value at Risk*, 3rd ed., 2007, ch. 12; Glasserman, *Monte Carlo
-    Methods in Financial Engineering*, 2003, ch. 9.
+    Methods in Financial Engineering*, 2003, ch. 9; McNeil, Frey & Embrechts,
+    *Quantitative Risk Management*, 2005, section 3.2.
     """
-    paths = int(options.get("paths", 10_000))
     n_batches = int(options.get("batches", 10))
-    include_mean = bool(options.get("include_mean", False))
-    rng = as_generator(seed)
-    factor = covariance_factor(sample.returns)
-    variances = np.einsum("rn,rn->n", factor, factor)
-    drift = sample.returns.mean(axis=0) if include_mean else -0.5 * variances
-    cumulative = simulate_log_paths(drift, factor, horizons, paths, rng)
+    cumulative, info = simulated_shocks(sample, horizons, options, seed)
+    paths = info["paths"]
     P, C, H = len(sample.portfolios), len(confidences), len(horizons)
     var, es, var_se, es_se = (np.empty((P, C, H)) for _ in range(4))
     for j, h in enumerate(horizons):
@@ -121,5 +238,17 @@ def estimate(
         n_obs=np.full(H, paths),
         var_se=var_se,
         es_se=es_se,
-        diagnostics={"paths": paths, "include_mean": include_mean, "batches": n_batches, "distribution": "normal"},
+        diagnostics={**info, "batches": n_batches},
     )
+
+
+def estimate_student_t(
+    sample: RiskSample,
+    confidences: Sequence[float],
+    horizons: Sequence[int],
+    *,
+    options: Mapping[str, Any],
+    seed: int | np.random.Generator | None = None,
+) -> RiskEstimate:
+    """:func:`estimate` with ``distribution = "t"``, for running beside the normal one."""
+    return estimate(sample, confidences, horizons, options={**options, "distribution": "t"}, seed=seed)

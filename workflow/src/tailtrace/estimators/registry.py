@@ -16,6 +16,12 @@ METHODS: dict[str, tuple[str, str]] = {
     "monte_carlo": ("tailtrace.estimators.monte_carlo", "estimate"),
     "delta_normal": ("tailtrace.estimators.delta_normal", "estimate"),
     "delta_gamma": ("tailtrace.estimators.delta_gamma", "estimate"),
+    "monte_carlo_t": ("tailtrace.estimators.monte_carlo", "estimate_student_t"),
+    "parametric_t": ("tailtrace.estimators.parametric_t", "estimate"),
+    "cornish_fisher": ("tailtrace.estimators.cornish_fisher", "estimate"),
+    "ewma_normal": ("tailtrace.estimators.ewma", "estimate"),
+    "age_weighted_historical": ("tailtrace.estimators.age_weighted", "estimate"),
+    "filtered_historical": ("tailtrace.estimators.filtered_historical", "estimate"),
 }
 
 

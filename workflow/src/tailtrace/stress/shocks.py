@@ -2,13 +2,16 @@
 
 from __future__ import annotations
 
+import warnings
+
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Sequence
 
 import numpy as np
 
-from ..errors import InputError
+from ..errors import ModelWarning, InputError
+from ..reference import ASSET_CLASSES
 from .instruments import InstrumentMeta
 from .yamlconfig import load_yaml_document, schema_path
 
@@ -235,8 +238,13 @@ def resolve_scenarios(
     for s, scen in enumerate(scenarios):  # a handful of scenarios and shocks, not days
         for shock in scen.shocks:
             mask = selector_mask(meta, shock.selector, shock.target)
-            if not mask.any():
-                raise _error(scen, shock, f"{shock.selector} '{shock.target}' matches no instrument", shock.selector, shock.target)
+            if not mask.any() and shock.selector == "asset_class" and shock.target not in ASSET_CLASSES:
+                raise _error(scen, shock, f"{shock.selector} '{shock.target}' matches no instrument and is not a "
+                             "known asset class", shock.selector, shock.target)
+            if not mask.any():  # today's book holds nothing it selects: a no-op, but say so
+                warnings.warn(f"shock scenario '{scen.name}': {shock.selector} '{shock.target}' matches no "
+                              "instrument of today's books; that shock is skipped", ModelWarning, stacklevel=2)
+                continue
             is_vol = shock.type == VOL_TYPE
             level, lines = (vol_level, vol_line) if is_vol else (price_level, price_line)
             lvl = SELECTOR_LEVEL[shock.selector]

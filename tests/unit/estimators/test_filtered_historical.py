@@ -1,0 +1,131 @@
+import warnings
+
+import numpy as np
+import pytest
+
+from tailtrace.errors import ConvergenceWarning
+from tailtrace.estimators import filtered_historical, garch
+from tailtrace.estimators.samples import linear_sample
+from tailtrace.estimators.tail import empirical_var_es
+
+
+@pytest.fixture(scope="module")
+def sp500_log_returns():
+    # open data shipped in the arch package (S&P 500, 1999–2018): arch.data.sp500
+    import arch.data.sp500
+
+    prices = arch.data.sp500.load()["Adj Close"].to_numpy()
+    return np.diff(np.log(prices))
+
+
+@pytest.mark.parametrize("mean", ["zero", "constant"])
+def test_garch_matches_a_direct_arch_fit(sp500_log_returns, mean):
+    from arch import arch_model
+
+    x = sp500_log_returns[-2500:]
+    fit = garch.fit_volatility(x, mean=mean)
+    spec = "Zero" if mean == "zero" else "Constant"
+    direct = arch_model(100 * x, mean=spec, vol="GARCH", p=1, q=1, dist="normal").fit(disp="off")
+    assert fit.model == "garch" and fit.reason is None
+    p = direct.params
+    assert fit.params["omega"] == pytest.approx(p["omega"], rel=1e-4)
+    assert fit.params["alpha"] == pytest.approx(p["alpha[1]"], rel=1e-4)
+    assert fit.params["beta"] == pytest.approx(p["beta[1]"], rel=1e-4)
+    assert fit.sigma == pytest.approx(direct.conditional_volatility / 100, rel=1e-4)
+    # our one-step forecast against arch's own forecast
+    forecast = direct.forecast(horizon=1, reindex=False).variance.to_numpy()[-1, 0]
+    assert fit.sigma_next == pytest.approx(np.sqrt(forecast) / 100, rel=1e-4)
+    # a daily equity index: persistent volatility (stylised fact, common practice, no source)
+    assert 0.9 < fit.params["persistence"] < 1.0
+
+
+def test_short_sample_uses_ewma(sp500_log_returns):
+    x = sp500_log_returns[:120]
+    fit = garch.fit_volatility(x, min_obs=250, fallback_decay=0.94)
+    assert fit.model == "ewma" and fit.reason == "short_sample"
+    var = [np.mean(x**2)]
+    for r in x:
+        var.append(0.94 * var[-1] + 0.06 * r**2)
+    assert fit.sigma == pytest.approx(np.sqrt(var[:-1]), rel=1e-12)
+    assert fit.sigma_next == pytest.approx(np.sqrt(var[-1]), rel=1e-12)
+
+
+def test_constant_series_is_left_alone():
+    fit = garch.fit_volatility(np.zeros(300))
+    assert fit.model == "constant" and fit.sigma_next == 0.0
+
+
+def _sample(history, values, window=500):
+    return linear_sample(history[-window:], values, history=history)
+
+
+@pytest.fixture
+def two_regime_sample():
+    rng = np.random.default_rng(12)
+    vol = np.r_[np.full(700, 0.008), np.full(100, 0.025)]  # calm, then a stressed recent period
+    x = rng.standard_normal((800, 2)) * vol[:, None]
+    x[:, 1] *= 0.5
+    return _sample(x, np.array([[1e6, 1e6], [2e6, 0.0]]))
+
+
+def test_filtered_returns_follow_hull_white(two_regime_sample):
+    rescaled, fits = filtered_historical.filtered_returns(two_regime_sample, {})
+    for i, fit in enumerate(fits):
+        expected = two_regime_sample.returns[:, i] * fit.sigma_next / fit.sigma[-500:]
+        assert rescaled[:, i] == pytest.approx(expected, rel=1e-12)
+    # today's volatility is the stressed one: the filtered sample is wider than the raw window
+    assert np.all(rescaled.std(axis=0) > two_regime_sample.returns.std(axis=0))
+
+
+def test_estimate_is_historical_on_filtered_returns(two_regime_sample):
+    est = filtered_historical.estimate(two_regime_sample, [0.95, 0.99], [1, 10], options={})
+    rescaled, _ = filtered_historical.filtered_returns(two_regime_sample, {})
+    var, es = empirical_var_es(-two_regime_sample.revalue(rescaled, 1), [0.95, 0.99])
+    assert est.var[:, :, 0] == pytest.approx(var, rel=1e-12)
+    assert est.es[:, :, 1] == pytest.approx(es * np.sqrt(10), rel=1e-12)
+    assert np.all(est.var_lo <= est.var) and np.all(est.var <= est.var_hi)
+    assert {v["model"] for v in est.diagnostics["volatility"].values()} == {"garch"}
+
+
+def test_failed_fit_falls_back_with_a_warning(two_regime_sample, monkeypatch):
+    def broken(x, mean="zero"):
+        raise RuntimeError("optimiser did not converge (flag 9)")
+
+    monkeypatch.setattr(garch, "fit_garch", broken)
+    with pytest.warns(ConvergenceWarning, match="EWMA volatility used"):
+        est = filtered_historical.estimate(two_regime_sample, [0.99], [1], options={})
+    notes = est.diagnostics["volatility"]["I1"]
+    assert notes["model"] == "ewma" and notes["reason"].startswith("fit_failed") and notes["decay"] == 0.94
+
+
+def test_short_history_needs_no_warning(two_regime_sample):
+    sample = _sample(two_regime_sample.history[-200:], two_regime_sample.values, window=200)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        est = filtered_historical.estimate(sample, [0.99], [1], options={"min_obs": 250})
+    assert est.diagnostics["volatility"]["I2"]["reason"] == "short_sample"
+
+
+def test_history_must_end_with_the_window(two_regime_sample):
+    import dataclasses
+
+    broken = dataclasses.replace(two_regime_sample, history=two_regime_sample.history[:-1])
+    with pytest.raises(ValueError, match="history to end with the window"):
+        filtered_historical.estimate(broken, [0.99], [1], options={})
+
+
+def test_late_listed_instrument_is_fitted_on_its_own_history(two_regime_sample):
+    history = two_regime_sample.history.copy()
+    history[:200, 1] = np.nan  # listed 200 days after the first instrument
+    sample = _sample(history, two_regime_sample.values)
+    est = filtered_historical.estimate(sample, [0.99], [1], options={})
+    fit = garch.fit_volatility(history[200:, 1])
+    assert est.diagnostics["volatility"]["I2"]["sigma_next"] == pytest.approx(fit.sigma_next, rel=1e-12)
+    history[-3, 0] = np.nan
+    with pytest.raises(ValueError, match="instrument I1: history has missing returns inside the estimation window"):
+        filtered_historical.filtered_returns(_sample(history, two_regime_sample.values), {})
+
+
+def test_bad_mean_option_is_rejected(two_regime_sample):
+    with pytest.raises(ValueError, match="GARCH mean must be"):
+        filtered_historical.estimate(two_regime_sample, [0.99], [1], options={"garch_mean": "ar1"})

@@ -1,0 +1,168 @@
+"""Conditional volatility of one return series: GARCH(1,1) with an EWMA fallback."""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from .ewma import ewma_variance_path
+
+__all__ = ["VolatilityFit", "DEFAULT_MIN_OBS", "DEFAULT_FALLBACK_DECAY", "fit_volatility", "fit_garch"]
+
+DEFAULT_MIN_OBS = 250
+DEFAULT_FALLBACK_DECAY = 0.94
+_PERCENT = 100.0  # the optimiser behaves best on percent returns
+
+
+@dataclass(frozen=True)
+class VolatilityFit:
+    """Conditional volatility of a series and how it was obtained.
+
+    Attributes
+    ----------
+    sigma : (H,) array
+        Volatility of each day given the days before it (return units).
+    sigma_next : float
+        Forecast for the day after the sample.
+    mean : float
+        Constant mean removed before scaling (0 with a zero mean).
+    model : str
+        ``garch``, ``ewma`` (fallback) or ``constant`` (no variation).
+    reason : str or None
+        Why the fallback was used: ``short_sample`` or ``fit_failed: ...``.
+    params : dict
+        GARCH parameters in percent units (``mu``, ``omega``, ``alpha``,
+        ``beta``, ``persistence``, ``scale``) or the EWMA ``decay``.
+    """
+
+    sigma: np.ndarray
+    sigma_next: float
+    mean: float
+    model: str
+    reason: str | None = None
+    params: dict[str, Any] = field(default_factory=dict)
+
+
+def fit_garch(x: np.ndarray, mean: str = "zero") -> VolatilityFit:
+    """Fit GARCH(1,1) with normal innovations to a return series using ``arch``.
+
+    Parameters
+    ----------
+    x : (H,) array of daily returns
+    mean : {"zero", "constant"}
+
+    Returns
+    -------
+    VolatilityFit
+
+    Raises
+    ------
+    RuntimeError
+        When the optimiser does not converge or returns non-finite values.
+
+    Notes
+    -----
+    ``σ²_t = ω + α ε²_{t−1} + β σ²_{t−1}``, ``ε_t = r_t − μ``, fitted on
+    percent returns (``arch`` may rescale further by a power of ten; the
+    parameters are reported in percent units). The forecast is
+    ``σ²_{H+1} = ω + α ε²_H + β σ²_H``.
+
+    References
+    ----------
+    Bollerslev, "Generalized autoregressive conditional heteroskedasticity",
+    Journal of Econometrics 31, 1986; the ``arch`` package (K. Sheppard).
+    """
+    from arch import arch_model  # costs about a second: only methods that fit pay it
+    from arch.utility.exceptions import ConvergenceWarning as ArchConvergenceWarning
+
+    if mean not in ("zero", "constant"):
+        raise ValueError(f"GARCH mean must be 'zero' or 'constant', got {mean!r}")
+    y = _PERCENT * np.asarray(x, dtype=float)
+    spec = "Zero" if mean == "zero" else "Constant"
+    model = arch_model(y, mean=spec, vol="GARCH", p=1, q=1, dist="normal", rescale=True)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = model.fit(disp="off", show_warning=True)
+    if res.convergence_flag != 0 or any(issubclass(w.category, ArchConvergenceWarning) for w in caught):
+        raise RuntimeError(f"optimiser did not converge (flag {res.convergence_flag})")
+    scale = float(res.scale)
+    params = res.params
+    mu = float(params["mu"]) if mean == "constant" else 0.0
+    omega, alpha, beta = float(params["omega"]), float(params["alpha[1]"]), float(params["beta[1]"])
+    sigma_scaled = np.asarray(res.conditional_volatility, dtype=float)
+    if not (np.all(np.isfinite(sigma_scaled)) and np.isfinite([mu, omega, alpha, beta]).all()):
+        raise RuntimeError("non-finite parameters or volatilities")
+    last_resid = y[-1] * scale - mu
+    next_var = omega + alpha * last_resid**2 + beta * sigma_scaled[-1] ** 2
+    unit = _PERCENT * scale
+    return VolatilityFit(
+        sigma=sigma_scaled / unit,
+        sigma_next=float(np.sqrt(next_var)) / unit,
+        mean=mu / unit,
+        model="garch",
+        params={
+            "mu": mu / scale,
+            "omega": omega / scale**2,
+            "alpha": alpha,
+            "beta": beta,
+            "persistence": alpha + beta,
+            "scale": scale,
+            "loglik": float(res.loglikelihood),
+        },
+    )
+
+
+def fit_volatility(
+    x: np.ndarray,
+    *,
+    mean: str = "zero",
+    min_obs: int = DEFAULT_MIN_OBS,
+    fallback_decay: float = DEFAULT_FALLBACK_DECAY,
+) -> VolatilityFit:
+    """GARCH(1,1) volatility of ``x``, or EWMA when the sample is short or the fit fails.
+
+    Parameters
+    ----------
+    x : (H,) array of daily returns
+    mean : {"zero", "constant"}
+    min_obs : int
+        Fewer observations than this skip GARCH (default 250).
+    fallback_decay : float
+        λ of the EWMA fallback (default 0.94).
+
+    Returns
+    -------
+    VolatilityFit
+        ``model`` and ``reason`` tell which estimate was used.
+
+    Notes
+    -----
+    The fallback runs ``σ²_{t+1} = λσ²_t + (1 − λ)ε²_t`` seeded with the
+    sample variance of ε (:func:`ewma.ewma_variance_path`). A series with no
+    variation gets ``model = 'constant'`` and zero volatility.
+    """
+    if mean not in ("zero", "constant"):
+        raise ValueError(f"GARCH mean must be 'zero' or 'constant', got {mean!r}")
+    x = np.asarray(x, dtype=float)
+    centre = float(x.mean()) if mean == "constant" else 0.0
+    resid = x - centre
+    if not np.any(np.abs(resid) > 0):
+        return VolatilityFit(np.zeros_like(x), 0.0, centre, "constant")
+    reason = "short_sample"
+    if x.size >= min_obs:
+        try:
+            return fit_garch(x, mean)
+        except (RuntimeError, ValueError, ArithmeticError, np.linalg.LinAlgError) as err:
+            reason = f"fit_failed: {err}"
+    path = ewma_variance_path(resid[:, None], fallback_decay, np.array([np.mean(resid**2)]))[:, 0]
+    return VolatilityFit(
+        sigma=np.sqrt(path[:-1]),
+        sigma_next=float(np.sqrt(path[-1])),
+        mean=centre,
+        model="ewma",
+        reason=reason,
+        params={"decay": fallback_decay},
+    )
