@@ -470,8 +470,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     if "error" in imp:
         print(f"\n  ingest import check failed: {imp['error']}")
     else:
+        note = " (pyarrow imports pandas on its first numpy conversion)" if imp["heavy"] == ["pandas"] else ""
         print(f"\n  ingest job imports: {imp['import_s']:.2f} s; ingest of one price file {imp['ingest_s']:.2f} s; "
-              f"heavy modules loaded: {', '.join(imp['heavy']) or 'none'}")
+              f"heavy modules loaded: {', '.join(imp['heavy']) or 'none'}{note}")
+    files, methods = universe.price_files, len(REFERENCE_METHODS)
+    planned = ref_phases["cold"].jobs_planned or 0
+    print(f"  job count: {planned} = {files} price files + {methods} methods + {planned - files - methods} fixed steps")
 
     print("\nfigures against the reference (historical and parametric normal VaR/ES, every portfolio, "
           "confidence and horizon)")
