@@ -49,7 +49,7 @@ HERE = Path(__file__).resolve().parent
 REPO = HERE.parent
 sys.path.insert(0, str(HERE))
 
-import datasets  # noqa: E402
+import universes  # noqa: E402
 
 __all__ = ["Phase", "run_phase", "main"]
 
@@ -356,23 +356,23 @@ def fresh(path: Path) -> Path:
     return path
 
 
-def bench_reference_case(universe: datasets.Universe, out: Path, cores: int) -> dict[str, Any]:
+def bench_reference_case(universe: universes.Universe, out: Path, cores: int) -> dict[str, Any]:
     """Cold, no-op and next-day with the reference's methods, and the reference itself."""
-    info = datasets.write_universe(universe, out / "data")
+    info = universes.write_universe(universe, out / "data")
     case = fresh(out / "runs" / universe.name / "reference_methods")
-    data = datasets.working_copy(Path(info["path"]), case / "data")
+    data = universes.working_copy(Path(info["path"]), case / "data")
     results = case / "results"
     phases = {"cold": run_phase("cold", workdir=case, data_dir=data, results=results,
-                                overlay=reference_overlay(datasets.LAST_DATE), cores=cores)}
+                                overlay=reference_overlay(universes.LAST_DATE), cores=cores)}
     phases["noop"] = run_phase("noop", workdir=case, data_dir=data, results=results,
-                               overlay=reference_overlay(datasets.LAST_DATE), cores=cores)
+                               overlay=reference_overlay(universes.LAST_DATE), cores=cores)
     window = backtest_window(results)
-    ref_cold, ref_cold_figs = run_reference("reference_cold", data, datasets.LAST_DATE, case / "reference", window)
+    ref_cold, ref_cold_figs = run_reference("reference_cold", data, universes.LAST_DATE, case / "reference", window)
     cmp_cold = compare(results, ref_cold_figs)
-    edited = datasets.add_next_day(data)
+    edited = universes.add_next_day(data)
     phases["next_day"] = run_phase("next_day", workdir=case, data_dir=data, results=results,
-                                   overlay=reference_overlay(datasets.NEXT_DATE), cores=cores)
-    ref_next, ref_next_figs = run_reference("reference_next_day", data, datasets.NEXT_DATE, case / "reference", window)
+                                   overlay=reference_overlay(universes.NEXT_DATE), cores=cores)
+    ref_next, ref_next_figs = run_reference("reference_next_day", data, universes.NEXT_DATE, case / "reference", window)
     cmp_next = compare(results, ref_next_figs)
     imports = ingest_import_check(data, case / "import_check")
     return {"universe": asdict(universe), "data": info, "phases": phases,
@@ -380,13 +380,13 @@ def bench_reference_case(universe: datasets.Universe, out: Path, cores: int) -> 
             "edited_file": edited.name, "ingest_imports": imports}
 
 
-def bench_full_case(universe: datasets.Universe, out: Path, cores: int, *, noop: bool = True) -> dict[str, Any]:
+def bench_full_case(universe: universes.Universe, out: Path, cores: int, *, noop: bool = True) -> dict[str, Any]:
     """Cold (and no-op) run of every method configured in config/config.yaml."""
-    info = datasets.write_universe(universe, out / "data")
+    info = universes.write_universe(universe, out / "data")
     case = fresh(out / "runs" / universe.name / "all_methods")
-    data = datasets.working_copy(Path(info["path"]), case / "data")
+    data = universes.working_copy(Path(info["path"]), case / "data")
     results = case / "results"
-    overlay: dict[str, Any] = {"as_of": datasets.LAST_DATE}
+    overlay: dict[str, Any] = {"as_of": universes.LAST_DATE}
     if "stress" in schema_properties():
         overlay["stress"] = {"shocks_file": str(HERE / "shocks.yaml")}
     phases = {"cold": run_phase("cold", workdir=case, data_dir=data, results=results, overlay=overlay, cores=cores)}
@@ -433,7 +433,7 @@ def growth_exponent(points: list[tuple[int, float]]) -> float | None:
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--quick", action="store_true", help="run only the 'small' universe, no scaling")
-    parser.add_argument("--universe", choices=sorted(datasets.UNIVERSES), default=None,
+    parser.add_argument("--universe", choices=sorted(universes.UNIVERSES), default=None,
                         help="universe of the main runs (default midsize; small with --quick)")
     parser.add_argument("--sizes", type=int, nargs="*", default=None,
                         help="instrument counts of the scaling runs (default 500 1000 2000 4000; none with --quick)")
@@ -443,7 +443,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     name = args.universe or ("small" if args.quick else "midsize")
     sizes = sorted(set(args.sizes if args.sizes is not None else ([] if args.quick else [500, 1000, 2000, 4000])))
-    universe = datasets.UNIVERSES[name]
+    universe = universes.UNIVERSES[name]
     out = args.out.resolve()
     out.mkdir(parents=True, exist_ok=True)
 
@@ -462,8 +462,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     print_phase_table(f"pipeline with the reference's methods only ({', '.join(REFERENCE_METHODS)}; stress off)",
                       {**ref_phases, "reference_cold": ref_case["reference"]["cold"],
                        "reference_next_day": ref_case["reference"]["next_day"]})
-    print(f"  (next-day: {ref_case['edited_file']} gained {datasets.NEXT_DATE}; as_of {datasets.LAST_DATE} -> "
-          f"{datasets.NEXT_DATE})")
+    print(f"  (next-day: {ref_case['edited_file']} gained {universes.NEXT_DATE}; as_of {universes.LAST_DATE} -> "
+          f"{universes.NEXT_DATE})")
     print_rules("cold", ref_phases["cold"])
     print_rules("next-day", ref_phases["next_day"])
     imp = ref_case["ingest_imports"]
