@@ -22,7 +22,7 @@ import pyarrow.csv as pacsv
 
 from .errors import DataQualityWarning, InputError
 
-__all__ = ["CsvTable", "read_csv_strict", "parse_dates", "parse_numbers", "require_text"]
+__all__ = ["CsvTable", "read_csv_strict", "parse_dates", "parse_numbers", "require_text", "sorted_codes", "text_codes"]
 
 _NUMBER = r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$"
 _ISO_DATE = r"^\d{4}-\d{2}-\d{2}$"
@@ -214,18 +214,57 @@ def require_text(table: CsvTable, column: str) -> np.ndarray:
     return np.asarray(arr.to_numpy(zero_copy_only=False), dtype=object)
 
 
+def _distinct(arr: pa.Array) -> tuple[pa.Array, np.ndarray]:
+    """Distinct values (first-seen order) and each row's index into them."""
+    encoded = pc.dictionary_encode(arr)
+    return encoded.dictionary, encoded.indices.to_numpy(zero_copy_only=False)
+
+
+def sorted_codes(values: pa.Array | pa.ChunkedArray) -> tuple[np.ndarray, np.ndarray]:
+    """``np.unique(values, return_inverse=True)`` for a text column, without a Python object per row.
+
+    Returns
+    -------
+    names : (K,) object array, sorted
+    codes : (n,) int array, ``names[codes]`` is the column
+    """
+    arr = values.combine_chunks() if isinstance(values, pa.ChunkedArray) else values
+    distinct, first_seen = _distinct(arr)
+    names = np.asarray(distinct.to_pylist(), dtype=object)
+    order = np.argsort(names)
+    rank = np.empty_like(order)
+    rank[order] = np.arange(order.size)
+    return names[order], rank[first_seen]
+
+
+def text_codes(table: CsvTable, column: str) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`require_text` as sorted distinct names and row codes (see :func:`sorted_codes`).
+
+    The check runs once per distinct value: a price file repeats each
+    instrument thousands of times.
+    """
+    names, codes = sorted_codes(table.columns[column])
+    empty = np.array([not n for n in names], dtype=bool)
+    _first_bad(table, column, empty[codes], "empty value; expected text")
+    return names, codes
+
+
 def parse_dates(table: CsvTable, column: str) -> np.ndarray:
-    """ISO 8601 dates (YYYY-MM-DD) as datetime64[D]."""
-    arr = table.columns[column]
-    shaped = np.asarray(pc.match_substring_regex(arr, _ISO_DATE).to_numpy(zero_copy_only=False), dtype=bool)
-    parsed = pc.strptime(arr, format="%Y-%m-%d", unit="s", error_is_null=True)
+    """ISO 8601 dates (YYYY-MM-DD) as datetime64[D].
+
+    Each distinct text is validated and parsed once (a price file repeats
+    every date once per instrument).
+    """
+    values, codes = _distinct(table.columns[column])
+    shaped = np.asarray(pc.match_substring_regex(values, _ISO_DATE).to_numpy(zero_copy_only=False), dtype=bool)
+    parsed = pc.strptime(values, format="%Y-%m-%d", unit="s", error_is_null=True)
     # strptime rolls impossible days over (2024-02-30 -> 2024-03-01): require a round trip.
-    same = pc.equal(pc.strftime(parsed, format="%Y-%m-%d"), arr)
+    same = pc.equal(pc.strftime(parsed, format="%Y-%m-%d"), values)
     valid = np.asarray(pc.fill_null(same, False).to_numpy(zero_copy_only=False), dtype=bool)
-    _first_bad(table, column, ~(shaped & valid), "not a valid ISO 8601 date; expected YYYY-MM-DD")
+    _first_bad(table, column, ~(shaped & valid)[codes], "not a valid ISO 8601 date; expected YYYY-MM-DD")
     days = parsed.to_numpy(zero_copy_only=False).astype("datetime64[D]")
-    _first_bad(table, column, days < EARLIEST_DATE, f"date before {EARLIEST_DATE}; a typo in the year?")
-    return days
+    _first_bad(table, column, (days < EARLIEST_DATE)[codes], f"date before {EARLIEST_DATE}; a typo in the year?")
+    return days[codes]
 
 
 def parse_numbers(table: CsvTable, column: str, *, positive: bool = False) -> np.ndarray:

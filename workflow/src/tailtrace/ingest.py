@@ -8,8 +8,9 @@ from typing import Iterable
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
-from .csvread import CsvTable, parse_dates, parse_numbers, read_csv_strict, require_text
+from .csvread import CsvTable, parse_dates, parse_numbers, read_csv_strict, sorted_codes, text_codes
 from .errors import InputError
 
 __all__ = ["PRICE_COLUMNS", "QUALITY_SCHEMA", "read_price_file", "quality_checks", "empty_quality", "runs_of_true"]
@@ -34,8 +35,9 @@ def empty_quality() -> pa.Table:
     return QUALITY_SCHEMA.empty_table()
 
 
-def _check_duplicates(table: CsvTable, order: np.ndarray, instrument: np.ndarray, date: np.ndarray, close: np.ndarray) -> None:
-    same = (instrument[order][1:] == instrument[order][:-1]) & (date[order][1:] == date[order][:-1])
+def _check_duplicates(table: CsvTable, order: np.ndarray, codes: np.ndarray, names: np.ndarray, date: np.ndarray,
+                      close: np.ndarray) -> None:
+    same = (codes[order][1:] == codes[order][:-1]) & (date[order][1:] == date[order][:-1])
     if not same.any():
         return
     j = int(np.flatnonzero(same)[0])
@@ -45,7 +47,7 @@ def _check_duplicates(table: CsvTable, order: np.ndarray, instrument: np.ndarray
         msg = f"duplicate row: same date and instrument as row {rows[0]}"
     else:
         msg = f"conflicting prices for the same date and instrument (rows {rows[0]} and {rows[1]}: {close[first]} vs {close[second]})"
-    raise InputError(msg, file=table.path, row=rows[1], column="date", value=f"{date[second]} {instrument[second]}")
+    raise InputError(msg, file=table.path, row=rows[1], column="date", value=f"{date[second]} {names[codes[second]]}")
 
 
 def read_price_file(
@@ -72,24 +74,24 @@ def read_price_file(
     """
     table = read_csv_strict(path, PRICE_COLUMNS)
     date = parse_dates(table, "date")
-    instrument = require_text(table, "instrument")
+    names, codes = text_codes(table, "instrument")  # checks once per instrument, not per row
     close = parse_numbers(table, "close", positive=True)
     known = set(known_instruments)
-    unknown = np.array([i not in known for i in instrument], dtype=bool)
+    unknown = np.array([n not in known for n in names], dtype=bool)[codes]
     if unknown.any():
         i = int(np.flatnonzero(unknown)[0])
-        raise InputError("unknown instrument: not listed in instruments.csv", file=table.path, row=table.row_of(i), column="instrument", value=instrument[i])
+        raise InputError("unknown instrument: not listed in instruments.csv", file=table.path, row=table.row_of(i), column="instrument", value=names[codes[i]])
     limit = np.datetime64(today if today is not None else _dt.date.today(), "D")
     future = date > limit
     if future.any():
         i = int(np.flatnonzero(future)[0])
         raise InputError(f"date lies in the future (after {limit})", file=table.path, row=table.row_of(i), column="date", value=str(date[i]))
-    order = np.lexsort((date, instrument))
-    _check_duplicates(table, order, instrument, date, close)
+    order = np.lexsort((date, codes))  # codes follow the sorted names
+    _check_duplicates(table, order, codes, names, date, close)
     out = pa.table(
         {
             "date": pa.array(date[order], type=pa.date32()),
-            "instrument": pa.array(instrument[order].astype(str), type=pa.string()),
+            "instrument": pc.take(pa.array(names.tolist(), type=pa.string()), pa.array(codes[order])),
             "close": pa.array(close[order], type=pa.float64()),
         }
     )
@@ -124,10 +126,9 @@ def quality_checks(prices: pa.Table, file: str, *, stale_days: int, extra_column
     missing-data policy.
     """
     date = prices.column("date").to_numpy().astype("datetime64[D]")
-    inst = np.asarray(prices.column("instrument").to_numpy(zero_copy_only=False), dtype=object)
     close = prices.column("close").to_numpy()
     rows: list[dict] = []
-    names, inst_idx = np.unique(inst, return_inverse=True)
+    names, inst_idx = sorted_codes(prices.column("instrument"))
     calendar, date_idx = np.unique(date, return_inverse=True)
     present = np.zeros((len(names), len(calendar)), dtype=bool)
     present[inst_idx, date_idx] = True
@@ -140,11 +141,11 @@ def quality_checks(prices: pa.Table, file: str, *, stale_days: int, extra_column
             rows.append(dict(instrument=names[k], check="gap", first_date=calendar[s], last_date=calendar[e], n=int(e - s + 1),
                              detail=f"no price on {e - s + 1} date(s) the file has for other instruments", severity="warning"))
     repeat = np.zeros(len(close), dtype=bool)
-    repeat[1:] = (close[1:] == close[:-1]) & (inst[1:] == inst[:-1])
+    repeat[1:] = (close[1:] == close[:-1]) & (inst_idx[1:] == inst_idx[:-1])
     for s, e in zip(*runs_of_true(repeat)):
         length = e - s + 2  # a run of k repeats spans k + 1 rows
         if length >= stale_days:
-            rows.append(dict(instrument=inst[s], check="stale", first_date=date[s - 1], last_date=date[e], n=int(length),
+            rows.append(dict(instrument=names[inst_idx[s]], check="stale", first_date=date[s - 1], last_date=date[e], n=int(length),
                              detail=f"close {close[s]} unchanged on {length} consecutive rows", severity="warning"))
     for col in extra_columns:
         rows.append(dict(instrument=None, check="extra_column", first_date=None, last_date=None, n=0,

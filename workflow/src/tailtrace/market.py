@@ -3,16 +3,18 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Sequence
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from .errors import InputError
 from .ingest import QUALITY_SCHEMA, runs_of_true
 from .reference import fx_instrument
 
-__all__ = ["MarketData", "build_market", "forward_fill_limited", "market_to_tables", "market_from_tables"]
+__all__ = ["MarketData", "build_market", "forward_fill_limited", "market_to_tables", "market_from_tables", "wide_matrix"]
 
 
 @dataclass(frozen=True)
@@ -37,7 +39,14 @@ class MarketData:
     log_returns: np.ndarray
 
     def column(self, instrument: str) -> int:
-        return self.instruments.index(instrument)
+        try:
+            return self._positions[instrument]
+        except KeyError:
+            raise ValueError(f"{instrument!r} is not in the market data") from None
+
+    @cached_property
+    def _positions(self) -> dict[str, int]:
+        return {name: j for j, name in enumerate(self.instruments)}
 
 
 def forward_fill_limited(values: np.ndarray, limit: int) -> np.ndarray:
@@ -46,13 +55,21 @@ def forward_fill_limited(values: np.ndarray, limit: int) -> np.ndarray:
     Leading NaNs stay NaN; a gap longer than ``limit`` is filled only for its
     first ``limit`` rows.
     """
-    valid = ~np.isnan(values)
-    rows = np.arange(values.shape[0])[:, None]
+    out = np.array(values, dtype=float, copy=True)
+    if out.ndim == 1:
+        return forward_fill_limited(out[:, None], limit)[:, 0]
+    gappy = np.flatnonzero(np.isnan(out).any(axis=0))  # most columns have no gap: leave them alone
+    if gappy.size == 0:
+        return out
+    part = out[:, gappy]
+    valid = ~np.isnan(part)
+    rows = np.arange(part.shape[0])[:, None]
     last = np.maximum.accumulate(np.where(valid, rows, -1), axis=0)
     age = rows - last
     take = np.clip(last, 0, None)
-    filled = np.take_along_axis(values, take, axis=0)
-    return np.where((last >= 0) & (age <= limit), filled, np.nan)
+    filled = np.take_along_axis(part, take, axis=0)
+    out[:, gappy] = np.where((last >= 0) & (age <= limit), filled, np.nan)
+    return out
 
 
 def build_market(
@@ -86,7 +103,7 @@ def build_market(
     """
     seen: dict[str, str] = {}
     for name, table in prices:
-        for inst in set(table.column("instrument").to_pylist()):
+        for inst in pc.unique(table.column("instrument")).to_pylist():
             if inst in seen:
                 raise InputError(f"instrument also priced in {seen[inst]}; each instrument must come from one file",
                                  file=name, column="instrument", value=inst)
@@ -98,9 +115,10 @@ def build_market(
     dates = np.unique(all_dates)
     local = np.full((len(dates), len(names)), np.nan)
     position = {n: i for i, n in enumerate(names)}
+    name_array = pa.array(names, type=pa.string())
     for _, table in prices:
         d = np.searchsorted(dates, table.column("date").to_numpy().astype("datetime64[D]"))
-        c = np.array([position[i] for i in table.column("instrument").to_pylist()], dtype=int)
+        c = pc.index_in(table.column("instrument"), value_set=name_array).to_numpy()
         local[d, c] = table.column("close").to_numpy()
     observed = ~np.isnan(local)
     local = forward_fill_limited(local, max_fill_days)
@@ -143,8 +161,9 @@ def build_market(
 def market_to_tables(market: MarketData) -> dict[str, pa.Table]:
     """Wide tables (date + one column per instrument) for Parquet."""
     def wide(matrix: np.ndarray) -> pa.Table:
+        by_column = np.ascontiguousarray(matrix.T, dtype=float)  # each column contiguous: no copy per column
         cols = {"date": pa.array(market.dates, type=pa.date32())}
-        cols.update({n: pa.array(matrix[:, j], type=pa.float64()) for j, n in enumerate(market.instruments)})
+        cols.update({n: pa.array(by_column[j], type=pa.float64()) for j, n in enumerate(market.instruments)})
         return pa.table(cols)
 
     return {
@@ -155,17 +174,27 @@ def market_to_tables(market: MarketData) -> dict[str, pa.Table]:
     }
 
 
-def market_from_tables(tables: dict[str, pa.Table]) -> MarketData:
-    """Inverse of :func:`market_to_tables`."""
-    def matrix(t: pa.Table) -> np.ndarray:
-        return np.column_stack([t.column(c).to_numpy() for c in t.column_names[1:]]) if t.num_columns > 1 else np.empty((t.num_rows, 0))
+def wide_matrix(table: pa.Table) -> np.ndarray:
+    """(D, N) float matrix of a wide table's instrument columns (all but ``date``)."""
+    names = table.column_names[1:]
+    out = np.empty((table.num_rows, len(names)))
+    for j, name in enumerate(names):  # filling a preallocated matrix is ~5x faster than column_stack
+        out[:, j] = table.column(name).to_numpy()
+    return out
 
+
+def market_from_tables(tables: dict[str, pa.Table]) -> MarketData:
+    """Inverse of :func:`market_to_tables`.
+
+    ``local`` may be left out (it is then None): most steps never use it, and
+    reading it costs as much as any other table.
+    """
     ref = tables["base"]
     return MarketData(
         dates=ref.column("date").to_numpy().astype("datetime64[D]"),
         instruments=tuple(ref.column_names[1:]),
-        local=matrix(tables["local"]),
-        base=matrix(ref),
-        observed=matrix(tables["observed"]).astype(bool),
-        log_returns=matrix(tables["returns"]),
+        local=wide_matrix(tables["local"]) if "local" in tables else None,
+        base=wide_matrix(ref),
+        observed=wide_matrix(tables["observed"]).astype(bool),
+        log_returns=wide_matrix(tables["returns"]),
     )

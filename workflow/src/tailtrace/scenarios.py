@@ -310,10 +310,12 @@ def build_sample(market: MarketData, book: "Book", window: int) -> RiskSample:
             f"(first missing return {first_bad}); {_missing_cause(market, cols[j], t)}",
             file=file, row=row, column="instrument", value=book.instruments[j])
     end = int(idx[-1]) + 1
-    start_hist = int(np.flatnonzero(np.isfinite(market.log_returns[:end, cols]).all(axis=1))[0])
-    history = market.log_returns[start_hist:end, cols]
-    complete = np.isfinite(history).all(axis=1)
-    history, history_dates = history[complete], market.dates[start_hist:end][complete]
+    block = market.log_returns[:end, cols]  # one copy of the book's columns, checked once
+    finite = np.isfinite(block).all(axis=1)
+    start_hist = int(np.flatnonzero(finite)[0])
+    complete = finite[start_hist:]
+    history = block[start_hist:] if complete.all() else block[start_hist:][complete]
+    history_dates = market.dates[start_hist:end][complete]
     return RiskSample(
         as_of=as_of,
         portfolios=book.portfolios,
