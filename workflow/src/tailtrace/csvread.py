@@ -104,6 +104,36 @@ def _locate_bad_row(path: Path, lines: Sequence[str], header: Sequence[str]) -> 
                              file=str(path), row=number, column=header[-1], value=line[:80])
 
 
+def _parse_body(body: str, slots: list[str]) -> pa.Table:
+    return pacsv.read_csv(
+        io.BytesIO(body.encode("utf-8")),
+        read_options=pacsv.ReadOptions(use_threads=False, column_names=slots),
+        parse_options=pacsv.ParseOptions(newlines_in_values=False, ignore_empty_lines=False),
+        convert_options=pacsv.ConvertOptions(
+            column_types={s: pa.string() for s in slots}, strings_can_be_null=False, quoted_strings_can_be_null=False
+        ),
+    )
+
+
+def _fast_parse(text: str, header_line: str, slots: list[str], n_rows: int) -> pa.Table | None:
+    """Parse a plain file (``\\n`` line ends, no blank lines) without splitting it in Python.
+
+    Returns None whenever anything looks unusual, so that the careful path
+    decides (and locates the bad line).
+    """
+    if "\r" in text:
+        return None
+    head, _, body = text.partition("\n")
+    body = body.rstrip("\n")
+    if head != header_line or not body or "\n\n" in body or body.count("\n") + 1 != n_rows:
+        return None
+    try:
+        table = _parse_body(body + "\n", slots)
+    except pa.ArrowInvalid:
+        return None
+    return table if table.num_rows == n_rows else None
+
+
 def read_csv_strict(
     path: str | Path,
     required: Sequence[str],
@@ -179,21 +209,16 @@ def read_csv_strict(
         raise InputError(f"no data rows below the header (need at least {min_rows})", file=name, row=2, column=required[0])
     # Positional names: pyarrow would otherwise match column_types against the unstripped header.
     slots = [f"c{i}" for i in range(len(header))]
-    try:
-        table = pacsv.read_csv(
-            io.BytesIO(("\n".join(lines[1:]) + "\n").encode("utf-8")),
-            read_options=pacsv.ReadOptions(use_threads=False, column_names=slots),
-            parse_options=pacsv.ParseOptions(newlines_in_values=False, ignore_empty_lines=False),
-            convert_options=pacsv.ConvertOptions(
-                column_types={s: pa.string() for s in slots}, strings_can_be_null=False, quoted_strings_can_be_null=False
-            ),
-        )
-    except pa.ArrowInvalid as exc:
-        _locate_bad_row(path, lines, header)
-        raise InputError(f"cannot parse CSV: {exc}", file=name) from None
-    if table.num_rows != len(lines) - 1 or any(not line.strip() for line in lines[1:]):
-        _locate_bad_row(path, lines, header)
-        raise InputError("cannot parse CSV: row count does not match the line count", file=name)
+    table = _fast_parse(text, header_line, slots, len(lines) - 1)
+    if table is None:  # the careful path: it also pins down the offending line
+        try:
+            table = _parse_body("\n".join(lines[1:]) + "\n", slots)
+        except pa.ArrowInvalid as exc:
+            _locate_bad_row(path, lines, header)
+            raise InputError(f"cannot parse CSV: {exc}", file=name) from None
+        if table.num_rows != len(lines) - 1 or any(not line.strip() for line in lines[1:]):
+            _locate_bad_row(path, lines, header)
+            raise InputError("cannot parse CSV: row count does not match the line count", file=name)
     table = table.rename_columns(header)
     keep = [c for c in header if c in required or c in optional]
     cols = {c: pc.utf8_trim_whitespace(table.column(c).combine_chunks()) for c in keep}
