@@ -86,6 +86,8 @@ class State:
     market: MarketData
     as_of: np.datetime64
     params: Parameters
+    instruments: pa.Table | None = None  # with option terms: options are priced, not looked up
+    base_currency: str = "EUR"
 
 
 def _index(values: Sequence[Any], value: Any, what: str) -> int:
@@ -106,16 +108,21 @@ def figure_value(state: State, key: FigureKey) -> tuple[float, float]:
     """
     from .estimators.registry import get_estimator
     from .pipeline import as_of_seed
-    from .scenarios import build_sample, linear_book
+    from .scenarios import build_sample, linear_book, make_book, option_instruments
 
     market = state.market
     if state.as_of not in market.dates:
         raise InputError(f"as_of {state.as_of} is not a date of this market data", file="market data")
-    unpriced = sorted(set(state.positions.column("instrument").to_pylist()) - set(market.instruments))
+    options = option_instruments(state.instruments) if state.instruments is not None else set()
+    unpriced = sorted(set(state.positions.column("instrument").to_pylist()) - set(market.instruments) - options)
     if unpriced:
         raise InputError("instrument has no prices in this market data", file=state.positions_file,
                          column="instrument", value=unpriced[0])
-    book = linear_book(state.as_of, state.positions, state.positions_file, market)
+    if options:
+        book = make_book(state.as_of, state.positions, state.positions_file, market, state.instruments,
+                         base_currency=state.base_currency, instruments_file="instruments.csv")
+    else:
+        book = linear_book(state.as_of, state.positions, state.positions_file, market)
     sample = build_sample(market, book, state.params.window_days)
     p = _index(sample.portfolios, key.portfolio, "portfolio")
     c = _index(state.params.confidences, float(key.confidence), "confidence")
@@ -344,12 +351,18 @@ def explain_change(db_path: str | Path, key_from: FigureKey, key_to: FigureKey, 
             positions, source = _positions(con, run, key.as_of)
             runs.append(run)
             stored.append((row, where))
-            states.append((positions, source, Parameters.from_params(run.step(f"estimate_{key.method}").params)))
+            instruments_path, _ = run.copy_of(run.step("ingest_instruments").output("instruments"))
+            instruments = pq.read_table(instruments_path) if instruments_path is not None else None
+            base_ccy = str(run.step("build_returns").params["base_currency"])
+            states.append((positions, source, Parameters.from_params(run.step(f"estimate_{key.method}").params),
+                           instruments, base_ccy))
     same = [tuple(r.step("build_returns").output(k).sha256 for k in ("base", "returns")) for r in runs]
     markets = [load_market(runs[0])]
     markets.append(markets[0] if same[0] == same[1] else load_market(runs[1]))
-    s1 = State(states[0][0], states[0][1], markets[0][0], np.datetime64(key_from.as_of, "D"), states[0][2])
-    s2 = State(states[1][0], states[1][1], markets[1][0], np.datetime64(key_to.as_of, "D"), states[1][2])
+    s1 = State(states[0][0], states[0][1], markets[0][0], np.datetime64(key_from.as_of, "D"), states[0][2],
+               states[0][3], states[0][4])
+    s2 = State(states[1][0], states[1][1], markets[1][0], np.datetime64(key_to.as_of, "D"), states[1][2],
+               states[1][3], states[1][4])
 
     def with_(state: State, **changes: Any) -> State:
         return State(**{**state.__dict__, **changes})
