@@ -129,8 +129,10 @@ def build_market(
     fx_rate = np.ones_like(local)
     for j, inst in enumerate(names):
         ccy = meta_ccy[inst]
-        if inst.startswith("FX.") and ccy != base_currency:
-            raise InputError(f"an FX series must be priced in the base currency {base_currency}", file=instruments_file,
+        if (inst.startswith("FX.") or inst.startswith("IV.")) and ccy != base_currency:
+            what = ("an FX series must be priced in the base currency" if inst.startswith("FX.") else
+                    "an implied-vol series (its close is a vol, not a price) must carry the base currency")
+            raise InputError(f"{what} {base_currency}", file=instruments_file,
                              row=meta_row[inst], column="currency", value=ccy)
         if ccy == base_currency:
             continue

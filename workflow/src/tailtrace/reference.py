@@ -40,6 +40,7 @@ ASSET_CLASSES = (
     "fx",
     "cash",
     "option",
+    "implied_vol",
 )
 _CCY = re.compile(r"^[A-Z]{3}$")
 

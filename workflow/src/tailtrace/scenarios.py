@@ -24,6 +24,7 @@ __all__ = [
     "Book",
     "make_book",
     "linear_book",
+    "implied_vol_instrument",
 ]
 
 EXPOSURE_SCHEMA = pa.schema(
@@ -151,6 +152,13 @@ def _option_book(as_of, positions, source_file, market, instruments, options, *,
         if ccy[o] != base_currency:
             needed.add(fx_instrument(ccy[o]))
             sources.setdefault(fx_instrument(ccy[o]), (source_file, int(rows[o])))
+    vol_series = {}  # underlying -> its implied-vol series IV.<underlying>, when a price file has one
+    for o in held_options:
+        iv = implied_vol_instrument(under[o])
+        if iv in market.instruments:
+            vol_series[under[o]] = iv
+            needed.add(iv)
+            sources.setdefault(iv, (source_file, int(rows[o])))
     columns = tuple(sorted(needed))
     missing = [c for c in columns if c not in market.instruments]
     if missing:
@@ -180,8 +188,34 @@ def _option_book(as_of, positions, source_file, market, instruments, options, *,
                                   type=pa.int64()),
     }, schema=EXPOSURE_SCHEMA)
     extra = {"exposures": book.exposures, "gammas": book.gammas, "thetas": book.thetas}
-    return Book(as_of, book.portfolios, book.instruments, book.exposures, book.revalue, extra, exp, sens_table,
+    revalue = book.revalue
+    if vol_series:
+        pairs = [(columns.index(u), columns.index(iv), prices[iv]) for u, iv in sorted(vol_series.items())]
+        revalue = _with_vol_series(book.revalue, pairs)
+    return Book(as_of, book.portfolios, book.instruments, book.exposures, revalue, extra, exp, sens_table,
                 sources)
+
+
+def _with_vol_series(revalue: Any, pairs: list[tuple[int, int, float]]) -> Any:
+    """Full revaluation in which each IV.<underlying> column moves the implied vols too.
+
+    The scenario's log change r of the vol series becomes the absolute vol
+    shock ``level * (exp(r) - 1)`` of every option on that underlying (the
+    series' move in vol points, today's level times its relative change);
+    explicit ``vol_shocks`` add to it.
+    """
+    def revalue_with_vols(log_shocks: np.ndarray, horizon_days: int = 1, vol_shocks: np.ndarray | None = None):
+        shocks = np.zeros_like(log_shocks) if vol_shocks is None else np.array(vol_shocks, dtype=float)
+        for under_col, iv_col, level in pairs:
+            shocks[:, under_col] += level * np.expm1(log_shocks[:, iv_col])
+        return revalue(log_shocks, horizon_days, vol_shocks=shocks)
+
+    return revalue_with_vols
+
+
+def implied_vol_instrument(underlying: str) -> str:
+    """Name of the optional implied-vol series of options on ``underlying``."""
+    return f"IV.{underlying}"
 
 
 def last_common_date(market: MarketData, instruments: Sequence[str]) -> np.datetime64:

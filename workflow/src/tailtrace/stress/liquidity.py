@@ -44,6 +44,11 @@ DEFAULT_LIQUIDITY_HORIZONS: dict[str, int] = {
     "equity_vol": 20,
     "fx_vol": 40,
     "commodity_vol": 60,
+    # the other asset classes of instruments.csv, by the same categories
+    "commodity_future": 20,
+    "bond_future": 10,
+    "cash": 10,
+    "implied_vol": 20,  # IV.<underlying> series: treated as equity volatility
 }
 
 # proposed DuckDB table liquidity_es: one row per portfolio and bucket
