@@ -177,3 +177,10 @@ def pnl_actual_input():
     """data_dir/pnl_actual.csv (date, portfolio, pnl) when it exists: realised P&L for the backtest."""
     path = Path(data_path("pnl_actual"))
     return {"pnl_actual": str(path)} if path.exists() else {}
+
+
+SLOW_METHODS = ("filtered_historical", "monte_carlo_t", "monte_carlo")  # longest jobs first on few cores
+
+
+def slow_method_priority(method):
+    return 10 if method in SLOW_METHODS else 0

@@ -17,6 +17,7 @@ for _method in config["methods"]:
             log_path(f"estimate_{_method}"),
         benchmark:
             bench_path(f"estimate_{_method}")
+        priority: slow_method_priority(_method)
         resources:
             mem_mb=4000,
             runtime=30,

@@ -103,7 +103,7 @@ def ewma_moments(sample: RiskSample, decay: float, include_mean: bool) -> tuple[
     """
     simple = np.expm1(sample.returns)
     cov = ewma_covariance(simple, decay)
-    variance = np.einsum("pi,ij,pj->p", sample.values, cov, sample.values)
+    variance = np.einsum("pi,pi->p", sample.values @ cov, sample.values)  # two operands: no P x N x N path
     sigma = np.sqrt(np.clip(variance, 0.0, None))
     mu = sample.values @ simple.mean(axis=0) if include_mean else np.zeros(len(sample.values))
     return mu, sigma, cov

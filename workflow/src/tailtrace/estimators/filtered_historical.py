@@ -27,7 +27,9 @@ def filtered_returns(sample: RiskSample, options: Mapping[str, Any]) -> tuple[np
         instrument's history after its last missing (NaN) value.
     options : mapping
         ``garch_mean`` ("zero" or "constant", default "zero"), ``min_obs``
-        (default 250), ``fallback_decay`` (default 0.94).
+        (default 250), ``fallback_decay`` (default 0.94), ``fit_window``
+        (default None: fit on the whole history; else the last
+        max(fit_window, T) days).
 
     Returns
     -------
@@ -44,6 +46,9 @@ def filtered_returns(sample: RiskSample, options: Mapping[str, Any]) -> tuple[np
     T = sample.n_obs
     if history.shape[0] < T or not np.array_equal(history[-T:], sample.returns, equal_nan=True):
         raise ValueError("filtered_historical needs sample.history to end with the window returns")
+    fit_window = options.get("fit_window")  # None: the whole history
+    if fit_window is not None:
+        history = history[-max(int(fit_window), T):]  # cost grows with the fit length, per instrument
     mean = str(options.get("garch_mean", "zero"))
     min_obs = int(options.get("min_obs", DEFAULT_MIN_OBS))
     decay = float(options.get("fallback_decay", DEFAULT_FALLBACK_DECAY))
