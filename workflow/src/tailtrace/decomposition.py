@@ -223,13 +223,18 @@ def risk_contributions(
     P, N = values.shape
     C, H = len(confidences), len(horizons)
 
-    eye = np.eye(N)
-    alone = (values[:, :, None] * eye[None]).reshape(P * N, N)
-    without = (values[:, None, :] * (1.0 - eye)[None]).reshape(P * N, N)
+    # derived books only for positions actually held: a portfolio holding 200 of 2,000 instruments
+    # needs 400 books, not 4,000 (the others' stand-alone and incremental figures are zero)
+    pp, nn = np.nonzero(values)
+    K = len(pp)
+    alone = np.zeros((K, N))
+    alone[np.arange(K), nn] = values[pp, nn]
+    without = values[pp].copy()
+    without[np.arange(K), nn] = 0.0
     books = np.vstack([values, alone, without])
     names = list(sample.portfolios)
-    names += [f"{p}: {i} alone" for p in sample.portfolios for i in sample.instruments]
-    names += [f"{p}: without {i}" for p in sample.portfolios for i in sample.instruments]
+    names += [f"{sample.portfolios[p]}: {sample.instruments[n]} alone" for p, n in zip(pp, nn)]
+    names += [f"{sample.portfolios[p]}: without {sample.instruments[n]}" for p, n in zip(pp, nn)]
     if method in ANALYTIC_METHODS:
         var_all, es_all = _estimate_in_chunks(estimator, sample, books, names, confidences, horizons, options, int_seed)
     else:
@@ -238,13 +243,15 @@ def risk_contributions(
         var_all, es_all = _scenario_figures(books, scenarios, confidences)
     var, es = var_all[:P], es_all[:P]
 
-    def per_position(block: np.ndarray) -> np.ndarray:  # (P·N, C, H) -> (P, C, H, N)
-        return block.reshape(P, N, C, H).transpose(0, 2, 3, 1)
+    def per_position(block: np.ndarray) -> np.ndarray:  # (K, C, H) of held positions -> (P, C, H, N)
+        out = np.zeros((P, C, H, N))
+        out[pp, :, :, nn] = block
+        return out
 
-    standalone_var = per_position(var_all[P : P + P * N])
-    standalone_es = per_position(es_all[P : P + P * N])
-    incremental_var = var[..., None] - per_position(var_all[P + P * N :])
-    incremental_es = es[..., None] - per_position(es_all[P + P * N :])
+    standalone_var = per_position(var_all[P : P + K])
+    standalone_es = per_position(es_all[P : P + K])
+    incremental_var = per_position(var[pp] - var_all[P + K :])
+    incremental_es = per_position(es[pp] - es_all[P + K :])
 
     if method in ANALYTIC_METHODS:
         marginal_var, marginal_es = _analytic_marginals(method, sample, simple, var, es, confidences, horizons, options)
