@@ -3,10 +3,7 @@
 
 rule backtest:
     input:
-        **market_outputs(),
-        exposures=rules.build_scenarios.output.exposures,
-        positions=rules.ingest_positions.output.positions,
-        instruments=rules.ingest_instruments.output.instruments,
+        **book_inputs(),
         **pnl_actual_input(),
     output:
         forecasts=result_path("backtest", "forecasts.parquet"),
@@ -27,9 +24,7 @@ rule backtest:
         options=as_json(config["backtest"]["options"]),
         seed=config["backtest"]["seed"],
         plus_factor_rule=config["backtest"]["plus_factor_rule"],
-        currency=config["base_currency"],
-        positions_file=data_path("positions"),
-        instruments_file=data_path("instruments"),
+        **book_params(),
         code=code_version("backtest", "scenarios", "market", "options", "pipeline", "provenance"),
     conda:
         ENV

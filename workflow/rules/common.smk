@@ -184,3 +184,22 @@ SLOW_METHODS = ("filtered_historical", "monte_carlo_t", "monte_carlo")  # longes
 
 def slow_method_priority(method):
     return 10 if method in SLOW_METHODS else 0
+
+
+def book_inputs():
+    """Inputs of every step that rebuilds the day's books: market data, as_of dates, positions, instruments."""
+    return {
+        **market_outputs(),
+        "exposures": rules.build_scenarios.output.exposures,
+        "positions": rules.ingest_positions.output.positions,
+        "instruments": rules.ingest_instruments.output.instruments,
+    }
+
+
+def book_params():
+    """Params of every step that rebuilds the day's books (names used in error messages, base currency)."""
+    return {
+        "currency": config["base_currency"],
+        "positions_file": data_path("positions"),
+        "instruments_file": data_path("instruments"),
+    }

@@ -6,10 +6,7 @@ for _method in config["methods"]:
         name:
             f"estimate_{_method}"
         input:
-            **market_outputs(),
-            exposures=rules.build_scenarios.output.exposures,
-            positions=rules.ingest_positions.output.positions,
-            instruments=rules.ingest_instruments.output.instruments,
+            **book_inputs(),
         output:
             figures=result_path("estimates", f"{_method}.parquet"),
             prov=prov_path(f"estimate_{_method}"),
@@ -26,9 +23,7 @@ for _method in config["methods"]:
             confidences=config["confidences"],
             horizons=config["horizons_days"],
             window_days=config["window_days"],
-            currency=config["base_currency"],
-            positions_file=data_path("positions"),
-            instruments_file=data_path("instruments"),
+            **book_params(),
             options=method_options(_method),
             seed=method_seed(_method),
             code=code_version(*estimator_modules(_method), "scenarios", "market", "options", "figures", "pipeline",
@@ -42,10 +37,7 @@ for _method in config["methods"]:
 
 rule contributions:
     input:
-        **market_outputs(),
-        exposures=rules.build_scenarios.output.exposures,
-        positions=rules.ingest_positions.output.positions,
-        instruments=rules.ingest_instruments.output.instruments,
+        **book_inputs(),
     output:
         contributions=result_path("contributions", "risk_contributions.parquet"),
         prov=prov_path("contributions"),
@@ -62,9 +54,7 @@ rule contributions:
         confidences=config["confidences"],
         horizons=config["horizons_days"],
         window_days=config["window_days"],
-        currency=config["base_currency"],
-        positions_file=data_path("positions"),
-        instruments_file=data_path("instruments"),
+        **book_params(),
         code=code_version("decomposition", "estimators", "scenarios", "market", "options", "pipeline",
                           "provenance"),
     conda:

@@ -4,10 +4,7 @@
 
 rule stress:
     input:
-        **market_outputs(),
-        exposures=rules.build_scenarios.output.exposures,
-        positions=rules.ingest_positions.output.positions,
-        instruments=rules.ingest_instruments.output.instruments,
+        **book_inputs(),
         windows=repo_path(config["stress"]["windows_file"]),
         shocks=repo_path(config["stress"]["shocks_file"]),
     output:
@@ -31,9 +28,7 @@ rule stress:
         horizons=config["horizons_days"],
         window_days=config["window_days"],
         seed=config["seed"],
-        currency=config["base_currency"],
-        positions_file=data_path("positions"),
-        instruments_file=data_path("instruments"),
+        **book_params(),
         code=code_version("stress", "estimators", "scenarios", "market", "options", "figures", "pipeline",
                           "provenance"),
     conda:

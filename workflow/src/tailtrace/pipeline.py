@@ -27,9 +27,9 @@ __all__ = [
     "build_returns",
     "build_scenarios",
     "run_estimator",
-    "load_returns",
     "as_of_seed",
     "parse_json_param",
+    "run_dates",
     "run_stress_step",
     "run_backtest_step",
     "run_contributions_step",
@@ -119,16 +119,6 @@ def build_returns(price_files: Sequence[str], instruments: str, outputs: Mapping
     write_parquet(filled, outputs["filled"])
 
 
-def load_returns(path: str) -> MarketData:
-    """Market data holding just the calendar and log returns (what estimators need)."""
-    from .market import wide_matrix
-
-    table = read_parquet(path)
-    return MarketData(dates=table.column("date").to_numpy().astype("datetime64[D]"),
-                      instruments=tuple(table.column_names[1:]), local=None, base=None, observed=None,
-                      log_returns=wide_matrix(table))
-
-
 def _positions_for(positions: pa.Table, as_of: np.datetime64, default_file: str) -> tuple[pa.Table, str]:
     day = str(np.datetime64(as_of, "D"))
     dated = positions.filter(pa.compute.equal(positions.column("positions_date"), day))
@@ -146,6 +136,12 @@ def _market_for_books(market_files: Mapping[str, str], *, local: bool = True) ->
 
     keys = ("local", "base", "observed", "returns") if local else ("base", "observed", "returns")
     return market_from_tables({k: read_parquet(market_files[k]) for k in keys})
+
+
+def run_dates(exposures: str) -> list[np.datetime64]:
+    """The as_of dates of the run, as the scenarios step resolved them into the exposures file."""
+    days = read_parquet(exposures, columns=["as_of"]).column("as_of").to_numpy().astype("datetime64[D]")
+    return sorted(set(days))
 
 
 def books_for(market: MarketData, positions: pa.Table, instruments: pa.Table, dates: Sequence[np.datetime64], *,
@@ -215,8 +211,8 @@ def run_estimator(market_files: Mapping[str, str], exposures: str, positions: st
 
     estimator = get_estimator(method)
     market = _market_for_books(market_files, local=False)  # estimators value books in base currency only
-    days = sorted(set(read_parquet(exposures, columns=["as_of"]).column("as_of").to_numpy().astype("datetime64[D]")))
-    books = books_for(market, read_parquet(positions), read_parquet(instruments), days, base_currency=currency,
+    books = books_for(market, read_parquet(positions), read_parquet(instruments), run_dates(exposures),
+                      base_currency=currency,
                       positions_file=positions_file, instruments_file=instruments_file)
     tables, notes = [], {}
     for book in books:
@@ -269,8 +265,7 @@ def run_stress_step(market_files: Mapping[str, str], exposures: str, positions: 
     instr = read_parquet(instruments)
     asset = dict(zip(instr.column("instrument").to_pylist(), instr.column("asset_class").to_pylist()))
     ccy = dict(zip(instr.column("instrument").to_pylist(), instr.column("currency").to_pylist()))
-    days = sorted(set(read_parquet(exposures, columns=["as_of"]).column("as_of").to_numpy().astype("datetime64[D]")))
-    books = books_for(market, read_parquet(positions), instr, days, base_currency=currency,
+    books = books_for(market, read_parquet(positions), instr, run_dates(exposures), base_currency=currency,
                       positions_file=positions_file, instruments_file=instruments_file)
     windows = load_stress_windows(windows_file)
     scenarios = load_shock_scenarios(shocks_file)
@@ -341,9 +336,7 @@ def run_backtest_step(market_files: Mapping[str, str], exposures: str, positions
     from .scenarios import build_sample
 
     market = _market_for_books(market_files)
-    days_of_run = sorted(set(pq.read_table(exposures, columns=["as_of"]).column("as_of").to_numpy()
-                             .astype("datetime64[D]")))
-    books = books_for(market, pq.read_table(positions), pq.read_table(instruments), days_of_run,
+    books = books_for(market, read_parquet(positions), read_parquet(instruments), run_dates(exposures),
                       base_currency=currency, positions_file=positions_file, instruments_file=instruments_file)
     forecasts, summaries, notes = [], [], {}
     for book in books:
@@ -392,8 +385,8 @@ def run_contributions_step(market_files: Mapping[str, str], exposures: str, posi
     from .scenarios import build_sample
 
     market = _market_for_books(market_files)
-    day = max(set(pq.read_table(exposures, columns=["as_of"]).column("as_of").to_numpy().astype("datetime64[D]")))
-    book = books_for(market, pq.read_table(positions), pq.read_table(instruments), [day], base_currency=currency,
+    day = run_dates(exposures)[-1]
+    book = books_for(market, read_parquet(positions), read_parquet(instruments), [day], base_currency=currency,
                      positions_file=positions_file, instruments_file=instruments_file)[0]
     sample = build_sample(market, book, window_days)
     with_options: list[str] = []
