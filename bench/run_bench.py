@@ -210,11 +210,13 @@ def schema_properties() -> dict[str, Any]:
 
 
 def reference_overlay(as_of: str) -> dict[str, Any]:
-    """Only the reference's methods; stress testing off; a backtest of both when the workflow has one."""
+    """Only the reference's methods; stress testing and the decomposition off; a backtest of both."""
     overlay: dict[str, Any] = {"methods": list(REFERENCE_METHODS), "as_of": as_of}
     props = schema_properties()
     if "stress" in props:
         overlay["stress"] = {"enabled": False}
+    if "contributions" in props:  # the reference decomposes nothing
+        overlay["contributions"] = {"methods": []}
     backtest = props.get("backtest", {}).get("properties", {})
     wanted = {"enabled": True, "methods": list(REFERENCE_METHODS), "days": BACKTEST_DAYS}
     if backtest:

@@ -376,11 +376,11 @@ def run_steps(data: Path, out: Path, config: Mapping) -> list[str]:
     instruments = str(out / "instruments.parquet")
     pl.ingest_instruments(str(data / inputs["instruments"]), instruments)
     positions = [str(data / inputs["positions"])] + sorted(str(p) for p in (data / inputs["positions_dir"]).glob("*.csv"))
-    pl.ingest_positions(positions, instruments, str(out / "positions.parquet"))
+    pl.ingest_positions(positions, str(data / inputs["instruments"]), str(out / "positions.parquet"))
     prices = []
     for f in sorted((data / inputs["prices_dir"]).glob("*.csv")):
         prices.append(str(out / f"prices-{f.stem}.parquet"))
-        pl.ingest_prices(str(f), instruments, prices[-1], str(out / f"quality-{f.stem}.parquet"),
+        pl.ingest_prices(str(f), str(data / inputs["instruments"]), prices[-1], str(out / f"quality-{f.stem}.parquet"),
                          stale_days=config["data_quality"]["stale_days"])
     market = {k: str(out / f"{k}.parquet") for k in ("local", "base", "observed", "returns", "filled")}
     pl.build_returns(prices, instruments, market, base_currency=config["base_currency"],

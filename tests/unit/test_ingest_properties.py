@@ -18,6 +18,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from tailtrace.errors import DataQualityWarning, InputError
+from tailtrace import ingest
 from tailtrace.ingest import quality_checks, read_price_file
 from tailtrace.reference import read_instruments, read_positions
 
@@ -150,3 +151,26 @@ def test_valid_rows_in_any_order_load_sorted_and_unchanged(scratch, rows):
                        (table.column("date").to_numpy().astype("datetime64[D]") - day0).astype(int).tolist()),
                    table.column("close").to_pylist()))
     assert got == unique  # repr round-trips floats exactly
+
+
+def _outcome(path: Path):
+    try:
+        table, extra = load_prices(path)
+    except InputError as exc:
+        return str(exc)
+    return table, extra
+
+
+@FAST
+@given(data=st.one_of(messy_csv(), nearly_valid_prices()))
+def test_typed_fast_path_reads_exactly_what_the_strict_reader_reads(scratch, data):
+    path = scratch / "prices.csv"
+    path.write_bytes(data)
+    fast = _outcome(path)
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(ingest, "_read_plain_prices", lambda p: None)  # the strict reader only
+        strict = _outcome(path)
+    if isinstance(strict, str) or isinstance(fast, str):
+        assert fast == strict
+    else:
+        assert fast[0].equals(strict[0]) and fast[1] == strict[1]

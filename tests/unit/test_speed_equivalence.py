@@ -199,3 +199,17 @@ def test_linear_book_delta_gamma_equals_explicit_diagonal_gammas(include_mean):
         kappa = delta_gamma_cumulants(slopes, dense, h * cov, constant=constant)
         np.testing.assert_allclose(np.asarray(linear.diagnostics["mean"])[:, i], kappa[:, 0], rtol=1e-9)
         np.testing.assert_allclose(np.asarray(linear.diagnostics["sd"])[:, i], np.sqrt(kappa[:, 1]), rtol=1e-9)
+
+
+def test_plain_price_file_takes_the_typed_path_and_reads_like_the_strict_reader(tmp_path, monkeypatch):
+    from tailtrace import ingest
+
+    rng = np.random.default_rng(5)
+    days = np.arange(np.datetime64("2024-01-01"), np.datetime64("2024-04-01"))
+    rows = [f"{d},{n},{float(c)!r}" for n in ("EQ.B", "EQ.A") for d, c in zip(days, rng.uniform(1, 200, days.size))]
+    path = _write(tmp_path / "plain.csv", list(rng.permutation(rows)))
+    assert ingest._read_plain_prices(path) is not None
+    fast, _ = read_price_file(path, ["EQ.A", "EQ.B"], today=TODAY)
+    monkeypatch.setattr(ingest, "_read_plain_prices", lambda p: None)
+    strict, _ = read_price_file(path, ["EQ.A", "EQ.B"], today=TODAY)
+    assert fast.equals(strict)

@@ -25,7 +25,7 @@ rule ingest_instruments:
 rule ingest_positions:
     input:
         positions=positions_files(),
-        instruments=rules.ingest_instruments.output.instruments,
+        instruments=data_path("instruments"),
     output:
         positions=result_path("reference", "positions.parquet"),
         prov=prov_path("ingest_positions"),
@@ -47,7 +47,7 @@ rule ingest_positions:
 rule ingest_prices:
     input:
         prices=str(Path(data_path("prices_dir")) / "{name}.csv"),
-        instruments=rules.ingest_instruments.output.instruments,
+        instruments=data_path("instruments"),
     output:
         prices=result_path("prices", "{name}.parquet"),
         quality=result_path("quality", "{name}.parquet"),
@@ -61,7 +61,7 @@ rule ingest_prices:
         runtime=10,
     params:
         stale_days=config["data_quality"]["stale_days"],
-        code=code_version("csvread", "ingest", "errors", "pipeline", "provenance"),
+        code=code_version("csvread", "ingest", "reference", "errors", "pipeline", "provenance"),
     conda:
         ENV
     script:

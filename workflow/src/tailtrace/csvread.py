@@ -13,7 +13,7 @@ import re
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Sequence
+from typing import Mapping, Sequence
 
 import numpy as np
 import pyarrow as pa
@@ -22,7 +22,7 @@ import pyarrow.csv as pacsv
 
 from .errors import DataQualityWarning, InputError
 
-__all__ = ["CsvTable", "read_csv_strict", "parse_dates", "parse_numbers", "require_text", "sorted_codes", "text_codes"]
+__all__ = ["CsvTable", "read_csv_strict", "read_plain_typed", "parse_dates", "parse_numbers", "require_text", "sorted_codes", "text_codes"]
 
 _NUMBER = r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$"
 _ISO_DATE = r"^\d{4}-\d{2}-\d{2}$"
@@ -223,6 +223,42 @@ def read_csv_strict(
     keep = [c for c in header if c in required or c in optional]
     cols = {c: pc.utf8_trim_whitespace(table.column(c).combine_chunks()) for c in keep}
     return CsvTable(path=name, columns=cols, extra_columns=extra)
+
+
+def read_plain_typed(path: str | Path, types: Mapping[str, pa.DataType]) -> pa.Table | None:
+    """Typed, multi-threaded parse of a plain file, or None when anything looks unusual.
+
+    Plain means: ``\n`` line ends, a header of exactly the columns of
+    ``types`` (any order, unquoted), no blank lines, and every value
+    parsing as its type. Anything else returns None and the caller takes
+    :func:`read_csv_strict`, which accepts more and pins down bad rows. The
+    caller still checks values pyarrow accepts but the strict path rejects
+    (nan, inf, years before :data:`EARLIEST_DATE`, padded text).
+    """
+    try:
+        raw = Path(path).read_bytes()
+    except OSError:
+        return None
+    if b"\r" in raw:
+        return None
+    head, _, body = raw.partition(b"\n")
+    header = head.decode("utf-8", "replace").split(",")
+    if sorted(header) != sorted(types) or not body.strip(b"\n"):
+        return None
+    body = body.rstrip(b"\n")
+    if b"\n\n" in body:
+        return None
+    try:
+        table = pacsv.read_csv(
+            pa.py_buffer(body + b"\n"),
+            read_options=pacsv.ReadOptions(column_names=header, use_threads=True),
+            parse_options=pacsv.ParseOptions(newlines_in_values=False, ignore_empty_lines=False),
+            convert_options=pacsv.ConvertOptions(column_types=dict(types), null_values=[], strings_can_be_null=False,
+                                                 quoted_strings_can_be_null=False),
+        )
+    except pa.ArrowInvalid:
+        return None
+    return table if table.num_rows == body.count(b"\n") + 1 else None
 
 
 def _first_bad(table: CsvTable, column: str, bad: np.ndarray, message: str) -> None:

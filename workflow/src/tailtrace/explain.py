@@ -213,11 +213,12 @@ def _rebuild_market(run: RecordedRun) -> tuple[MarketData, str]:
     with tempfile.TemporaryDirectory(prefix="tailtrace-explain-") as tmp:
         root = Path(tmp)
         instruments = str(root / "instruments.parquet")
-        ingest_instruments(fetch(run.step("ingest_instruments").inputs_named("instruments")[0]), instruments)
+        instruments_csv = fetch(run.step("ingest_instruments").inputs_named("instruments")[0])
+        ingest_instruments(instruments_csv, instruments)
         prices = []
         for s in sorted((s for s in run.steps if s.rule == "ingest_prices"), key=lambda s: s.label):
             out = str(root / "prices" / f"{s.job['name']}.parquet")
-            ingest_prices(fetch(s.inputs_named("prices")[0]), instruments, out, str(root / f"q-{s.job['name']}.parquet"),
+            ingest_prices(fetch(s.inputs_named("prices")[0]), instruments_csv, out, str(root / f"q-{s.job['name']}.parquet"),
                           stale_days=int(s.params["stale_days"]))
             prices.append(out)
         outputs = {k: str(root / f"{k}.parquet") for k in ("local", "base", "observed", "returns", "filled")}

@@ -10,7 +10,16 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .csvread import CsvTable, parse_dates, parse_numbers, read_csv_strict, sorted_codes, text_codes
+from .csvread import (
+    EARLIEST_DATE,
+    CsvTable,
+    parse_dates,
+    parse_numbers,
+    read_csv_strict,
+    read_plain_typed,
+    sorted_codes,
+    text_codes,
+)
 from .errors import InputError
 
 __all__ = ["PRICE_COLUMNS", "QUALITY_SCHEMA", "read_price_file", "quality_checks", "empty_quality", "runs_of_true"]
@@ -50,6 +59,23 @@ def _check_duplicates(table: CsvTable, order: np.ndarray, codes: np.ndarray, nam
     raise InputError(msg, file=table.path, row=rows[1], column="date", value=f"{date[second]} {names[codes[second]]}")
 
 
+_PRICE_TYPES = {"date": pa.date32(), "instrument": pa.string(), "close": pa.float64()}
+
+
+def _read_plain_prices(path: str | Path) -> tuple[CsvTable, np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
+    """The typed fast path for a plain file whose values all pass; None sends it to the strict reader."""
+    typed = read_plain_typed(path, _PRICE_TYPES)
+    if typed is None:
+        return None
+    date = typed.column("date").to_numpy().astype("datetime64[D]")
+    close = typed.column("close").to_numpy()
+    names, codes = sorted_codes(typed.column("instrument"))
+    padded = any(not n or n != n.strip() for n in names)
+    if padded or not (np.isfinite(close).all() and (close > 0).all() and (date >= EARLIEST_DATE).all()):
+        return None  # the strict path reports the offending row
+    return CsvTable(path=str(path), columns={}, extra_columns=()), date, names, codes, close
+
+
 def read_price_file(
     path: str | Path, known_instruments: Iterable[str], *, today: np.datetime64 | None = None
 ) -> tuple[pa.Table, list[str]]:
@@ -72,10 +98,14 @@ def read_price_file(
         Bad date, non-numeric or non-positive close, unknown instrument,
         future date, duplicate or conflicting rows.
     """
-    table = read_csv_strict(path, PRICE_COLUMNS)
-    date = parse_dates(table, "date")
-    names, codes = text_codes(table, "instrument")  # checks once per instrument, not per row
-    close = parse_numbers(table, "close", positive=True)
+    plain = _read_plain_prices(path)
+    if plain is not None:
+        table, date, names, codes, close = plain
+    else:
+        table = read_csv_strict(path, PRICE_COLUMNS)
+        date = parse_dates(table, "date")
+        names, codes = text_codes(table, "instrument")  # checks once per instrument, not per row
+        close = parse_numbers(table, "close", positive=True)
     known = set(known_instruments)
     unknown = np.array([n not in known for n in names], dtype=bool)[codes]
     if unknown.any():

@@ -5,6 +5,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import logging
+import warnings
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
@@ -13,7 +14,7 @@ import pyarrow as pa
 import pyarrow.compute  # noqa: F401  (pa.compute)
 import pyarrow.parquet as pq
 
-from .errors import InputError
+from .errors import DataQualityWarning, InputError
 from .ingest import quality_checks, read_price_file
 from .market import MarketData, build_market, market_to_tables
 from .reference import read_instruments, read_positions
@@ -64,6 +65,18 @@ def read_parquet(path: str | Path, columns: Sequence[str] | None = None) -> pa.T
         return handle.read(columns=list(columns) if columns is not None else None)
 
 
+def known_instruments(instruments_csv: str) -> list[str]:
+    """Instrument names of instruments.csv, validated as ingest_instruments validates them.
+
+    The price and positions ingests read the CSV themselves rather than wait
+    for the instruments step: one job level less. That step reports the
+    file's warnings.
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)
+        return read_instruments(instruments_csv).column("instrument").to_pylist()
+
+
 def ingest_instruments(path: str, out: str) -> None:
     table = read_instruments(path)
     write_parquet(table, out, {"tailtrace.source": str(path)})
@@ -78,13 +91,13 @@ def _position_date(path: Path) -> str | None:
     return path.stem
 
 
-def ingest_positions(paths: Sequence[str], instruments: str, out: str) -> None:
+def ingest_positions(paths: Sequence[str], instruments_csv: str, out: str) -> None:
     """Validate every positions file into one table with its source and date.
 
     The undated file (positions.csv) applies to every as_of without a dated
     file positions/<YYYY-MM-DD>.csv.
     """
-    known = read_parquet(instruments, columns=["instrument"]).column("instrument").to_pylist()
+    known = known_instruments(instruments_csv)
     parts = []
     for p in sorted(paths):
         table = read_positions(p, known)
@@ -94,8 +107,8 @@ def ingest_positions(paths: Sequence[str], instruments: str, out: str) -> None:
     write_parquet(pa.concat_tables(parts), out)
 
 
-def ingest_prices(path: str, instruments: str, out_prices: str, out_quality: str, *, stale_days: int) -> None:
-    known = read_parquet(instruments, columns=["instrument"]).column("instrument").to_pylist()
+def ingest_prices(path: str, instruments_csv: str, out_prices: str, out_quality: str, *, stale_days: int) -> None:
+    known = known_instruments(instruments_csv)
     prices, extra = read_price_file(path, known)
     write_parquet(prices, out_prices, {"tailtrace.source": str(path)})
     quality = quality_checks(prices, str(path), stale_days=stale_days, extra_columns=extra)
