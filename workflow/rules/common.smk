@@ -122,7 +122,10 @@ def record_files():
 
 
 def market_outputs():
-    return {k: result_path("market", f"{k}.parquet") for k in ("local", "base", "observed", "returns")}
+    """Wide Parquet tables (for reviewers and DuckDB) and the same matrices as .npy (fast loads for the steps)."""
+    keys = ("local", "base", "observed", "returns")
+    tables = {k: result_path("market", f"{k}.parquet") for k in keys}
+    return {**tables, **{f"{k}_matrix": result_path("market", f"{k}.npy") for k in keys}}
 
 
 def config_snapshot():

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import cached_property
-from typing import Sequence
+from pathlib import Path
+from typing import Mapping, Sequence
 
 import numpy as np
 import pyarrow as pa
@@ -14,7 +15,19 @@ from .errors import InputError
 from .ingest import QUALITY_SCHEMA, runs_of_true
 from .reference import fx_instrument
 
-__all__ = ["MarketData", "build_market", "forward_fill_limited", "market_to_tables", "market_from_tables", "wide_matrix"]
+__all__ = [
+    "MarketData",
+    "MATRIX_KEYS",
+    "build_market",
+    "forward_fill_limited",
+    "market_to_tables",
+    "market_from_tables",
+    "write_market_matrices",
+    "market_from_matrices",
+    "wide_matrix",
+]
+
+MATRIX_KEYS = ("local", "base", "observed", "returns")
 
 
 @dataclass(frozen=True)
@@ -183,6 +196,46 @@ def wide_matrix(table: pa.Table) -> np.ndarray:
     for j, name in enumerate(names):  # filling a preallocated matrix is ~5x faster than column_stack
         out[:, j] = table.column(name).to_numpy()
     return out
+
+
+def _matrix_of(market: MarketData, key: str) -> np.ndarray:
+    return {"local": market.local, "base": market.base, "observed": market.observed, "returns": market.log_returns}[key]
+
+
+def write_market_matrices(market: MarketData, paths: Mapping[str, str | Path]) -> None:
+    """The (D, N) matrices as ``.npy`` files beside the wide Parquet tables.
+
+    The Parquet tables are what a reviewer or DuckDB reads; the steps that
+    rebuild books load these instead, one read per matrix rather than one
+    per instrument column (about 1 s less per job at 2,000 instruments).
+    ``.npy`` holds a fixed header and the raw array, so equal data give
+    equal bytes.
+    """
+    for key in MATRIX_KEYS:
+        matrix = _matrix_of(market, key)
+        target = Path(paths[key])
+        tmp = target.with_name(target.name + ".partial")
+        with open(tmp, "wb") as handle:
+            np.save(handle, np.ascontiguousarray(matrix), allow_pickle=False)
+        tmp.replace(target)
+
+
+def market_from_matrices(dates: np.ndarray, instruments: Sequence[str], paths: Mapping[str, str | Path]) -> MarketData:
+    """:class:`MarketData` from the matrices of :func:`write_market_matrices`.
+
+    ``dates`` and ``instruments`` come from the base table (its ``date``
+    column and column names); ``local`` is loaded only when ``paths`` names
+    it.
+    """
+    dates = np.asarray(dates).astype("datetime64[D]")
+    instruments = tuple(instruments)
+    loaded = {k: np.load(paths[k], allow_pickle=False) for k in MATRIX_KEYS if k in paths}
+    for key, matrix in loaded.items():
+        if matrix.shape != (dates.size, len(instruments)):
+            raise ValueError(f"{paths[key]}: shape {matrix.shape} does not match the market tables "
+                             f"({dates.size} dates, {len(instruments)} instruments); rerun build_returns")
+    return MarketData(dates=dates, instruments=instruments, local=loaded.get("local"), base=loaded["base"],
+                      observed=loaded["observed"].astype(bool, copy=False), log_returns=loaded["returns"])
 
 
 def market_from_tables(tables: dict[str, pa.Table]) -> MarketData:

@@ -16,7 +16,7 @@ import pyarrow.parquet as pq
 
 from .errors import DataQualityWarning, InputError
 from .ingest import quality_checks, read_price_file
-from .market import MarketData, build_market, market_to_tables
+from .market import MATRIX_KEYS, MarketData, build_market, market_to_tables, write_market_matrices
 from .reference import read_instruments, read_positions
 
 __all__ = [
@@ -129,6 +129,8 @@ def build_returns(price_files: Sequence[str], instruments: str, outputs: Mapping
                                   max_fill_days=max_fill_days, instruments_file=instruments_file)
     for key, table in market_to_tables(market).items():
         write_parquet(table, outputs[key])
+    if all(matrix_key(k) in outputs for k in MATRIX_KEYS):
+        write_market_matrices(market, {k: outputs[matrix_key(k)] for k in MATRIX_KEYS})
     write_parquet(filled, outputs["filled"])
 
 
@@ -144,10 +146,20 @@ def _positions_for(positions: pa.Table, as_of: np.datetime64, default_file: str)
     return undated, str(undated.column("source")[0])
 
 
+def matrix_key(key: str) -> str:
+    """Name of a market matrix (``.npy``) among a rule's inputs and outputs."""
+    return f"{key}_matrix"
+
+
 def _market_for_books(market_files: Mapping[str, str], *, local: bool = True) -> MarketData:
-    from .market import market_from_tables
+    from .market import market_from_matrices, market_from_tables
 
     keys = ("local", "base", "observed", "returns") if local else ("base", "observed", "returns")
+    if all(matrix_key(k) in market_files for k in keys):
+        with pq.ParquetFile(market_files["base"]) as base:
+            names = base.schema_arrow.names
+            dates = base.read(columns=["date"]).column("date").to_numpy()
+        return market_from_matrices(dates, names[1:], {k: market_files[matrix_key(k)] for k in keys})
     return market_from_tables({k: read_parquet(market_files[k]) for k in keys})
 
 
