@@ -87,10 +87,26 @@ def test_estimate_is_historical_on_filtered_returns(two_regime_sample):
     assert {v["model"] for v in est.diagnostics["volatility"].values()} == {"garch"}
 
 
+def _batch_never_converges(monkeypatch):
+    from tailtrace.garch_batch import fit_garch11_batch
+
+    monkeypatch.setattr(garch, "fit_garch11_batch", lambda x: fit_garch11_batch(x, max_iter=0))
+
+
+def test_series_the_batch_cannot_fit_go_to_arch(two_regime_sample, monkeypatch):
+    _batch_never_converges(monkeypatch)
+    rescaled, fits = filtered_historical.filtered_returns(two_regime_sample, {})
+    for i, fit in enumerate(fits):
+        direct = garch.fit_garch(two_regime_sample.history[:, i])
+        assert fit.model == "garch" and fit.reason is None
+        assert fit.params == direct.params and fit.sigma_next == direct.sigma_next
+
+
 def test_failed_fit_falls_back_with_a_warning(two_regime_sample, monkeypatch):
     def broken(x, mean="zero"):
         raise RuntimeError("optimiser did not converge (flag 9)")
 
+    _batch_never_converges(monkeypatch)
     monkeypatch.setattr(garch, "fit_garch", broken)
     with pytest.warns(ConvergenceWarning, match="EWMA volatility used"):
         est = filtered_historical.estimate(two_regime_sample, [0.99], [1], options={})
