@@ -41,8 +41,9 @@ class Garch11Batch:
     variance_next : (N,) array
         Forecast for the day after the sample, ``ω + αx²_T + βσ²_T``.
     converged : (N,) bool array
-        The optimiser met its tolerance and arch's variance bounds do not
-        bind along the path (so the fit maximises arch's objective too).
+        The optimiser met its tolerance inside the α + β < 1 − 1e-6 edge and
+        arch's variance bounds do not bind along the path (so the fit
+        maximises arch's objective too).
     iterations : (N,) int array
         Newton/BHHH iterations used.
     """
@@ -142,7 +143,7 @@ def fit_garch11_batch(x: np.ndarray, *, max_iter: int = 30, tol: float = 1e-10) 
     ``∂σ²_t/∂θ = (1, x²_{t−1}, σ²_{t−1}) + β ∂σ²_{t−1}/∂θ`` and
     ``∂²σ²_t/∂θ∂β = ∂σ²_{t−1}/∂θ + ∂σ²_{t−1}/∂θ e_β + β ∂²σ²_{t−1}/∂θ∂β``,
     run over days with all series side by side. A fit on the edge
-    α + β = 1 − 1e-6 is returned but not :attr:`~Garch11Batch.usable`.
+    α + β = 1 − 1e-6 is returned but not ``converged``.
 
     References
     ----------
@@ -169,7 +170,10 @@ def fit_garch11_batch(x: np.ndarray, *, max_iter: int = 30, tol: float = 1e-10) 
         "iterations": np.zeros(N, int),
     }
     scale = np.std(x, axis=0) if T else np.zeros(N)
-    fittable = np.flatnonzero(np.isfinite(scale) & (scale > 0) & np.all(np.isfinite(x), axis=0))
+    rms = np.sqrt(np.mean(x**2, axis=0)) if T else np.zeros(N)
+    # a constant column has a std of rounding noise, not exactly 0
+    varies = np.isfinite(scale) & (scale > 1e-12 * rms) & (T >= 2)
+    fittable = np.flatnonzero(varies & np.all(np.isfinite(x), axis=0))
     for start in range(0, fittable.size, _CHUNK):
         cols = fittable[start : start + _CHUNK]
         s = scale[cols]
@@ -418,4 +422,5 @@ def _fit_unit(y: np.ndarray, max_iter: int, tol: float):
         iterations[active[~done]] += 1
         # a series whose line search cannot improve stops, not converged
         active = active[~done & moved]
+    converged &= z[1] < hi[1]  # a maximum on the α + β edge is arch's to judge
     return (*_theta(z), converged, iterations)
