@@ -379,3 +379,17 @@ def test_method_seeds_do_not_depend_on_order(pnl):
     b = rolling_forecasts(pnl, ["historical", "monte_carlo"], CONF, window=100, days=20, seed=5,
                           options={"monte_carlo": {"paths": 1000}})
     np.testing.assert_array_equal(a["monte_carlo"].var, b["monte_carlo"].var)
+
+
+def test_many_garch_fits_agree_with_arch_one_by_one(garch_t):
+    # reference: arch (K. Sheppard) through fit_garch11, one sample at a time
+    x = garch_t(17, 4, 600, scale=30.0).T.copy()
+    x[:, 2] = 5.0  # constant
+    many = fit_garch11_many(x)
+    assert [f.reason for f in many] == ["ok", "ok", "constant", "ok"]
+    for j in (0, 1, 3):
+        direct = fit_garch11(x[:, j])
+        assert many[j].alpha == pytest.approx(direct.alpha, abs=1e-3)
+        assert many[j].beta == pytest.approx(direct.beta, abs=2e-3)
+        np.testing.assert_allclose(many[j].variance, direct.variance, rtol=1e-3)
+    assert [f.reason for f in fit_garch11_many(x[:100])] == ["too_short"] * 4

@@ -23,7 +23,7 @@ _PERSISTENCES = (0.5, 0.7, 0.9, 0.98)
 _MAX_PERSISTENCE = 1.0 - 1e-6  # a fit on this edge is not stationary: the caller falls back
 _ARMIJO = 1e-4
 _MAX_HALVINGS = 40
-_CHUNK = 1024  # columns per pass: keeps the (3, T, n) derivative paths in a few tens of MB
+_CHUNK = 512  # columns per pass (twice that with the second start): keeps the (3, T, n) derivative paths in a few tens of MB
 
 
 @dataclass(frozen=True)
@@ -45,7 +45,7 @@ class Garch11Batch:
         arch's variance bounds do not bind along the path (so the fit
         maximises arch's objective too).
     iterations : (N,) int array
-        Newton/BHHH iterations used.
+        Newton/BHHH iterations used, both starts together.
     """
 
     omega: np.ndarray
@@ -330,19 +330,24 @@ def _box(prob: _Problem) -> tuple[np.ndarray, np.ndarray]:
     return lo, hi
 
 
-def _start(prob: _Problem) -> np.ndarray:
-    """Best point of arch's starting grid for each series, as z."""
+def _starts(prob: _Problem) -> tuple[np.ndarray, np.ndarray]:
+    """Best point of arch's starting grid, and best with α + β = 0.5, for each series, as z.
+
+    GARCH likelihoods can have a second maximum at low β (ARCH-like); a
+    second start from the low-persistence row of the grid finds it.
+    """
     n = prob.v.size
-    best_ll = np.full(n, -np.inf)
-    best = np.zeros((3, n))
+    best_ll, low_ll = np.full(n, -np.inf), np.full(n, -np.inf)
+    best, low = np.zeros((3, n)), np.zeros((3, n))
     for a in _ALPHAS:
         for p in _PERSISTENCES:
             z = np.stack([np.log(prob.v * (1.0 - p)), np.full(n, p), np.full(n, a / p)])
             ll = prob.loglik(_theta(z))
-            better = ll > best_ll
-            best_ll = np.where(better, ll, best_ll)
-            best[:, better] = z[:, better]
-    return best
+            for keep, keep_ll, take in ((best, best_ll, True), (low, low_ll, p == _PERSISTENCES[0])):
+                better = (ll > keep_ll) & take
+                keep_ll[better] = ll[better]
+                keep[:, better] = z[:, better]
+    return best, low
 
 
 def _direction(grad, hz, bz, z, lo, hi):
@@ -397,11 +402,29 @@ def _line_search(prob, z, ll, d, grad, lo, hi, pending) -> np.ndarray:
 
 
 def _fit_unit(y: np.ndarray, max_iter: int, tol: float):
-    """Optimise the unit-variance columns of ``y``; returns ω, α, β, converged, iterations."""
-    prob = _Problem(y)
+    """Optimise the unit-variance columns of ``y`` from two starts, keep the higher maximum.
+
+    Returns ω, α, β, converged, iterations (of both starts together).
+    """
     n = y.shape[1]
+    best, low = _starts(_Problem(y))
+    second = np.flatnonzero(np.any(low != best, axis=0))
+    cols = np.r_[np.arange(n), second]
+    z0 = np.concatenate([best, low[:, second]], axis=1)
+    theta, ll, converged, iterations = _optimise(_Problem(y[:, cols]), z0, max_iter, tol)
+    k = np.arange(n, cols.size)
+    use = ll[k] > ll[second]  # the higher point, converged or not: a lower maximum is no answer
+    pick = np.arange(n)
+    pick[second[use]] = k[use]
+    iterations[second] += iterations[k]
+    return (*theta[:, pick], converged[pick], iterations[:n])
+
+
+def _optimise(prob: _Problem, z0: np.ndarray, max_iter: int, tol: float):
+    """Projected Newton/BHHH from ``z0``; returns θ, ℓ, converged, iterations."""
+    n = z0.shape[1]
     lo, hi = _box(prob)
-    z = np.clip(_start(prob), lo, hi)
+    z = np.clip(z0, lo, hi)
     ll = prob.loglik(_theta(z))
     converged = np.zeros(n, bool)
     iterations = np.zeros(n, int)
@@ -423,4 +446,4 @@ def _fit_unit(y: np.ndarray, max_iter: int, tol: float):
         # a series whose line search cannot improve stops, not converged
         active = active[~done & moved]
     converged &= z[1] < hi[1]  # a maximum on the α + β edge is arch's to judge
-    return (*_theta(z), converged, iterations)
+    return _theta(z), ll, converged, iterations
