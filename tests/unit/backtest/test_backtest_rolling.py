@@ -13,7 +13,7 @@ from tailtrace.backtest.rolling import FORECASTERS, rolling_forecasts
 from tailtrace.backtest.rolling_base import tail_count
 from tailtrace.backtest.rolling_historical import age_weights, weighted_tail
 from tailtrace.backtest.student_t import fit_t_dof, t_factors
-from tailtrace.backtest.volatility import fit_garch11, garch_variance_extend
+from tailtrace.backtest.volatility import fit_garch11, fit_garch11_many, garch_variance_extend
 from tailtrace.errors import ConfigError, ModelWarning
 
 CONF = [0.99, 0.975]
@@ -248,13 +248,15 @@ def test_filtered_historical_rescales_by_volatility(garch_t):
     for p in range(2):
         if r.fallback[p, 0, d]:
             continue
-        fit = fit_garch11(x[p, t0 + 20 - 500 : t0 + 20])
-        s2 = np.r_[fit.variance, garch_variance_extend(fit, x[p, t0 + 19], x[p, t0 + 20 : t0 + d])]
-        sigma = np.sqrt(s2)  # columns t0 + 20 - 500 .. t0 + d
-        z = x[p, t0 + d - 250 : t0 + d] / sigma[-251:-1]
-        losses = np.sort(-z)[::-1] * sigma[-1]
-        assert r.var[p, 0, d] == pytest.approx(losses[1], rel=1e-9)  # k = floor(2.5) = 2
-        assert r.es[p, 1, d] == pytest.approx(losses[:6].mean(), rel=1e-9)
+        sample = x[p, t0 + 20 - 500 : t0 + 20]
+        # the batched fit of one sample, as the forecaster uses it, then arch's fit of it
+        for fit, rel in ((fit_garch11_many(sample[:, None])[0], 1e-9), (fit_garch11(sample), 1e-4)):
+            s2 = np.r_[fit.variance, garch_variance_extend(fit, x[p, t0 + 19], x[p, t0 + 20 : t0 + d])]
+            sigma = np.sqrt(s2)  # columns t0 + 20 - 500 .. t0 + d
+            z = x[p, t0 + d - 250 : t0 + d] / sigma[-251:-1]
+            losses = np.sort(-z)[::-1] * sigma[-1]
+            assert r.var[p, 0, d] == pytest.approx(losses[1], rel=rel)  # k = floor(2.5) = 2
+            assert r.es[p, 1, d] == pytest.approx(losses[:6].mean(), rel=rel)
         assert r.diagnostics["garch_params"][b][p] is not None
 
 
@@ -377,3 +379,17 @@ def test_method_seeds_do_not_depend_on_order(pnl):
     b = rolling_forecasts(pnl, ["historical", "monte_carlo"], CONF, window=100, days=20, seed=5,
                           options={"monte_carlo": {"paths": 1000}})
     np.testing.assert_array_equal(a["monte_carlo"].var, b["monte_carlo"].var)
+
+
+def test_many_garch_fits_agree_with_arch_one_by_one(garch_t):
+    # reference: arch (K. Sheppard) through fit_garch11, one sample at a time
+    x = garch_t(17, 4, 600, scale=30.0).T.copy()
+    x[:, 2] = 5.0  # constant
+    many = fit_garch11_many(x)
+    assert [f.reason for f in many] == ["ok", "ok", "constant", "ok"]
+    for j in (0, 1, 3):
+        direct = fit_garch11(x[:, j])
+        assert many[j].alpha == pytest.approx(direct.alpha, abs=1e-3)
+        assert many[j].beta == pytest.approx(direct.beta, abs=2e-3)
+        np.testing.assert_allclose(many[j].variance, direct.variance, rtol=1e-3)
+    assert [f.reason for f in fit_garch11_many(x[:100])] == ["too_short"] * 4

@@ -87,10 +87,26 @@ def test_estimate_is_historical_on_filtered_returns(two_regime_sample):
     assert {v["model"] for v in est.diagnostics["volatility"].values()} == {"garch"}
 
 
+def _batch_never_converges(monkeypatch):
+    from tailtrace.garch_batch import fit_garch11_batch
+
+    monkeypatch.setattr(garch, "fit_garch11_batch", lambda x: fit_garch11_batch(x, max_iter=0))
+
+
+def test_series_the_batch_cannot_fit_go_to_arch(two_regime_sample, monkeypatch):
+    _batch_never_converges(monkeypatch)
+    rescaled, fits = filtered_historical.filtered_returns(two_regime_sample, {})
+    for i, fit in enumerate(fits):
+        direct = garch.fit_garch(two_regime_sample.history[:, i])
+        assert fit.model == "garch" and fit.reason is None
+        assert fit.params == direct.params and fit.sigma_next == direct.sigma_next
+
+
 def test_failed_fit_falls_back_with_a_warning(two_regime_sample, monkeypatch):
     def broken(x, mean="zero"):
         raise RuntimeError("optimiser did not converge (flag 9)")
 
+    _batch_never_converges(monkeypatch)
     monkeypatch.setattr(garch, "fit_garch", broken)
     with pytest.warns(ConvergenceWarning, match="EWMA volatility used"):
         est = filtered_historical.estimate(two_regime_sample, [0.99], [1], options={})
@@ -129,3 +145,32 @@ def test_late_listed_instrument_is_fitted_on_its_own_history(two_regime_sample):
 def test_bad_mean_option_is_rejected(two_regime_sample):
     with pytest.raises(ValueError, match="GARCH mean must be"):
         filtered_historical.estimate(two_regime_sample, [0.99], [1], options={"garch_mean": "ar1"})
+
+
+def test_many_columns_at_once_equal_one_at_a_time(sp500_log_returns):
+    x = sp500_log_returns[-600:]
+    spike = np.zeros(600)
+    spike[300] = 0.05
+    cols = np.column_stack([x, np.zeros(600), spike, x[::-1] * 3.0])
+    many = garch.fit_volatility_many(cols)
+    assert [f.model for f in many] == ["garch", "constant", many[2].model, "garch"]
+    for j, fit in enumerate(many):
+        one = garch.fit_volatility(cols[:, j])
+        assert (fit.model, fit.reason) == (one.model, one.reason)
+        assert fit.sigma_next == pytest.approx(one.sigma_next, rel=1e-6)
+    # the batch gives up on the single shock: that column is exactly the per-series (arch / EWMA) result
+    spike_alone = garch._fit_one(spike, "zero", 250, 0.94)
+    assert many[2].sigma_next == spike_alone.sigma_next and many[2].params == spike_alone.params
+    short = garch.fit_volatility_many(cols[:100], min_obs=250)
+    assert [f.reason for f in short] == ["short_sample", None, None, "short_sample"]  # the shock is later
+
+
+@pytest.mark.parametrize("unit", [1e-4, 1.0, 0.05, 30.0])
+def test_reported_scale_and_loglik_are_those_of_an_arch_fit(sp500_log_returns, unit):
+    # reference: arch's own rescaling (arch_model(..., rescale=True)) and log-likelihood
+    x = sp500_log_returns[-1500:] * unit
+    fit = garch.fit_volatility(x)
+    direct = garch.fit_garch(x)
+    assert fit.params["scale"] == direct.params["scale"]
+    assert fit.params["loglik"] == pytest.approx(direct.params["loglik"], abs=1e-4)
+    assert fit.params["omega"] == pytest.approx(direct.params["omega"], rel=1e-3)

@@ -24,7 +24,7 @@ from .rolling_base import (
     tail_count,
     tail_of_sorted,
 )
-from .volatility import ewma_variance_path, fit_garch11, garch_variance_extend
+from .volatility import GarchFit, ewma_variance_path, fit_garch11_many, garch_variance_extend_many
 
 __all__ = [
     "forecast_historical",
@@ -243,7 +243,9 @@ def forecast_filtered_historical(
     -----
     Every ``refit_every`` backtest days a zero-mean GARCH(1,1) is fitted per
     portfolio on the ``fit_window`` days before that day
-    (:func:`~tailtrace.backtest.volatility.fit_garch11`); until the next
+    (:func:`~tailtrace.backtest.volatility.fit_garch11_many`: all
+    (refit day, portfolio) samples of one length in one batched fit, arch
+    only where that fails); until the next
     refit the parameters are held and the variance recursion continues on
     new data. Each window day is rescaled,
     ``x*_i = x_i sigma_t / sigma_i``, and VaR/ES are the historical figures
@@ -276,22 +278,24 @@ def forecast_filtered_historical(
     garch_used = np.zeros((setup.n_portfolios, setup.days), bool)
     reasons: Counter[str] = Counter()
     params: list[list[list[float] | None]] = []
-    for d0 in offsets:  # one refit per block; forecasts inside the block are array ops
+    fits = _block_fits(x, T0 + offsets, fit_window, int(opts["min_fit_obs"]))
+    for b, d0 in enumerate(offsets):  # one refit per block; forecasts inside the block are array ops
         d1 = min(d0 + refit_every, setup.days)
         t0 = T0 + d0
         span = slice(t0 - W, T0 + d1)  # window days of the block plus its forecast days
         s2 = ewma[:, span.start - (T0 - W) : span.stop - (T0 - W)].copy()
-        block_params: list[list[float] | None] = []
-        for p in range(setup.n_portfolios):  # arch fits one series at a time
-            fit = fit_garch11(x[p, max(0, t0 - fit_window) : t0], min_obs=int(opts["min_fit_obs"]))
-            reasons[fit.reason] += 1
-            if not fit.ok:
-                block_params.append(None)
-                continue
-            s2[p, :W] = fit.variance[-W:]
-            s2[p, W:] = garch_variance_extend(fit, x[p, t0 - 1], x[p, t0 : T0 + d1 - 1])
-            garch_used[p, d0:d1] = True
-            block_params.append([float(f"{v:.6g}") for v in (fit.omega, fit.alpha, fit.beta)])
+        reasons.update(f.reason for f in fits[b])
+        ok = np.array([f.ok for f in fits[b]])
+        if ok.any():
+            good = [f for f in fits[b] if f.ok]
+            omega, alpha, beta = (np.array([getattr(f, k) for f in good]) for k in ("omega", "alpha", "beta"))
+            path = np.stack([f.variance[-W:] for f in good])
+            s2[ok, :W] = path
+            s2[ok, W:] = garch_variance_extend_many(omega, alpha, beta, path[:, -1], x[ok, t0 - 1 : T0 + d1 - 1])
+            garch_used[ok, d0:d1] = True
+        block_params: list[list[float] | None] = [
+            [float(f"{v:.6g}") for v in (f.omega, f.alpha, f.beta)] if f.ok else None for f in fits[b]
+        ]
         params.append(block_params)
         sigma = np.sqrt(s2)
         z = np.divide(x[:, span], sigma, out=np.zeros(sigma.shape), where=sigma > 0)
@@ -318,3 +322,22 @@ def forecast_filtered_historical(
         "garch_params": params,
     }
     return RollingForecast("filtered_historical", var, es, fallback, diag)
+
+
+def _block_fits(x: np.ndarray, refit_days: np.ndarray, fit_window: int, min_obs: int) -> list[list[GarchFit]]:
+    """GARCH fits of every portfolio at every refit day, ``[block][portfolio]``.
+
+    The sample of day t is the ``min(t, fit_window)`` days before it; all
+    samples of one length (every block once t ≥ fit_window) go to one call.
+    """
+    n_portfolios = x.shape[0]
+    lengths = np.minimum(refit_days, fit_window)
+    fits: list[list[GarchFit]] = [[] for _ in refit_days]
+    for length in np.unique(lengths):
+        blocks = np.flatnonzero(lengths == length)
+        days = refit_days[blocks, None] - length + np.arange(length)  # (B, L)
+        samples = x[:, days].transpose(2, 1, 0).reshape(length, -1)  # column b * P + p
+        many = fit_garch11_many(samples, min_obs=min_obs)
+        for k, b in enumerate(blocks):
+            fits[b] = many[k * n_portfolios : (k + 1) * n_portfolios]
+    return fits

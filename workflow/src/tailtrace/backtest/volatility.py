@@ -1,7 +1,8 @@
-"""Conditional variance paths: EWMA in one pass, GARCH(1,1) fitted with arch.
+"""Conditional variance paths: EWMA in one pass, GARCH(1,1) fitted in batches.
 
 scipy.signal and arch are imported inside the functions that need them
-(about 0.65 s and 1.7 s), so light jobs importing the package do not pay.
+(about 0.65 s and 1.7 s), so light jobs importing the package do not pay;
+arch only runs for the samples the batched fit cannot fit.
 """
 
 from __future__ import annotations
@@ -11,7 +12,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["ewma_variance_path", "GarchFit", "fit_garch11", "garch_variance_extend"]
+from ..garch_batch import fit_garch11_batch
+
+__all__ = [
+    "ewma_variance_path",
+    "GarchFit",
+    "fit_garch11",
+    "fit_garch11_many",
+    "garch_variance_extend",
+    "garch_variance_extend_many",
+]
 
 
 def ewma_variance_path(pnl: np.ndarray, lam: float, start: int, stop: int, seed_window: int) -> np.ndarray:
@@ -139,6 +149,44 @@ def fit_garch11(x: np.ndarray, *, min_obs: int = 250) -> GarchFit:
     return GarchFit(True, "ok", omega * scale**2, alpha, beta, variance)
 
 
+def fit_garch11_many(x: np.ndarray, *, min_obs: int = 250) -> list[GarchFit]:
+    """:func:`fit_garch11` of every column of ``x``, with one batched fit.
+
+    Parameters
+    ----------
+    x : (n, M) array
+        M P&L samples of equal length, oldest first.
+    min_obs : int
+        As in :func:`fit_garch11`.
+
+    Returns
+    -------
+    list of GarchFit, one per column
+
+    Notes
+    -----
+    Columns that are long enough and not constant are fitted together by
+    :func:`~tailtrace.garch_batch.fit_garch11_batch` (the likelihood,
+    backcast and bounds of arch's zero-mean GARCH(1,1)); a column it does
+    not make usable (not converged, non-finite, α + β ≥ 1) is fitted by
+    :func:`fit_garch11` with arch, which gives the reason if that fails too.
+    """
+    x = np.asarray(x, dtype=float)
+    if x.ndim != 2:
+        raise ValueError(f"fit_garch11_many needs an (n, M) array, got shape {x.shape}")
+    n, m = x.shape
+    if n < max(min_obs, 10):
+        return [GarchFit(False, "too_short") for _ in range(m)]
+    fits: list[GarchFit | None] = [None] * m
+    cols = np.flatnonzero(np.std(x, axis=0) > 0)
+    batch = fit_garch11_batch(x[:, cols])
+    for k in np.flatnonzero(batch.usable):
+        fits[cols[k]] = GarchFit(
+            True, "ok", float(batch.omega[k]), float(batch.alpha[k]), float(batch.beta[k]), batch.variance[:, k]
+        )
+    return [f if f is not None else fit_garch11(x[:, j], min_obs=min_obs) for j, f in enumerate(fits)]
+
+
 def garch_variance_extend(fit: GarchFit, last_x: float, x_after: np.ndarray) -> np.ndarray:
     """Continue a fitted GARCH variance path past the fit sample.
 
@@ -164,3 +212,29 @@ def garch_variance_extend(fit: GarchFit, last_x: float, x_after: np.ndarray) -> 
     drive = fit.omega + fit.alpha * x_prev**2
     zi = np.array([fit.beta * fit.variance[-1]])
     return lfilter([1.0], [1.0, -fit.beta], drive, zi=zi)[0]
+
+
+def garch_variance_extend_many(
+    omega: np.ndarray, alpha: np.ndarray, beta: np.ndarray, last_variance: np.ndarray, x_prev: np.ndarray
+) -> np.ndarray:
+    """:func:`garch_variance_extend` for several series with their own parameters.
+
+    Parameters
+    ----------
+    omega, alpha, beta, last_variance : (P,) arrays
+        Fitted parameters and ``sigma^2`` of each fit sample's last day.
+    x_prev : (P, m + 1) array
+        Each fit sample's last observation, then the m observations after it.
+
+    Returns
+    -------
+    (P, m + 1) array
+        ``sigma^2`` for the first day after each fit sample and the next m days.
+    """
+    x_prev = np.asarray(x_prev, dtype=float)
+    drive = omega[:, None] + alpha[:, None] * x_prev**2
+    out = np.empty_like(drive)
+    prev = np.asarray(last_variance, dtype=float)
+    for j in range(drive.shape[1]):  # at most refit_every days, all series side by side
+        prev = out[:, j] = drive[:, j] + beta * prev
+    return out

@@ -10,7 +10,7 @@ import numpy as np
 from ..errors import ConvergenceWarning
 from .bands import DEFAULT_BAND_LEVEL, sqrt_time_band
 from .base import RiskEstimate, RiskSample
-from .garch import DEFAULT_FALLBACK_DECAY, DEFAULT_MIN_OBS, VolatilityFit, fit_volatility
+from .garch import DEFAULT_FALLBACK_DECAY, DEFAULT_MIN_OBS, VolatilityFit, fit_volatility_many
 from .scaling import sqrt_time_estimate
 from .tail import empirical_var_es, tail_count
 
@@ -40,7 +40,9 @@ def filtered_returns(sample: RiskSample, options: Mapping[str, Any]) -> tuple[np
     -----
     ``r*_t = μ + (r_t − μ) σ_{n+1}/σ_t`` with σ_t the conditional volatility
     of day t and σ_{n+1} the forecast for the next day (μ = 0 with a zero
-    mean). Instruments without variation are left as they are.
+    mean). Instruments without variation are left as they are. Instruments
+    with the same fit length are fitted in one batched call
+    (:func:`~tailtrace.estimators.garch.fit_volatility_many`).
     """
     history = np.asarray(sample.history, dtype=float)
     T = sample.n_obs
@@ -52,11 +54,13 @@ def filtered_returns(sample: RiskSample, options: Mapping[str, Any]) -> tuple[np
     mean = str(options.get("garch_mean", "zero"))
     min_obs = int(options.get("min_obs", DEFAULT_MIN_OBS))
     decay = float(options.get("fallback_decay", DEFAULT_FALLBACK_DECAY))
-    # one optimisation per instrument: the fits cannot share an array operation
-    fits = [
-        fit_volatility(_trailing_finite(history[:, i], T, name), mean=mean, min_obs=min_obs, fallback_decay=decay)
-        for i, name in enumerate(sample.instruments)
-    ]
+    lengths = _trailing_finite_lengths(history, T, sample.instruments)
+    fits: list[VolatilityFit] = [None] * lengths.size  # type: ignore[list-item]
+    for length in np.unique(lengths):  # one batched fit per fit length: usually a single group
+        cols = np.flatnonzero(lengths == length)
+        group = fit_volatility_many(history[-length:, cols], mean=mean, min_obs=min_obs, fallback_decay=decay)
+        for i, fit in zip(cols, group):
+            fits[i] = fit
     sigma = np.stack([f.sigma[-T:] for f in fits], axis=1)
     sigma_next = np.array([f.sigma_next for f in fits])
     centre = np.array([f.mean for f in fits])
@@ -65,13 +69,14 @@ def filtered_returns(sample: RiskSample, options: Mapping[str, Any]) -> tuple[np
     return centre + (sample.returns - centre) * factor, fits
 
 
-def _trailing_finite(series: np.ndarray, window: int, name: str) -> np.ndarray:
-    # instruments listed later than others carry NaN before their first return: fit on what exists
-    gaps = np.flatnonzero(~np.isfinite(series))
-    start = int(gaps[-1]) + 1 if gaps.size else 0
-    if series.size - start < window:
-        raise ValueError(f"instrument {name}: history has missing returns inside the estimation window")
-    return series[start:]
+def _trailing_finite_lengths(history: np.ndarray, window: int, names: Sequence[str]) -> np.ndarray:
+    """Days after each column's last missing value: instruments listed later carry NaN before."""
+    finite = np.isfinite(history)
+    lengths = np.where(finite.all(axis=0), history.shape[0], np.argmin(finite[::-1], axis=0))
+    short = np.flatnonzero(lengths < window)
+    if short.size:
+        raise ValueError(f"instrument {names[short[0]]}: history has missing returns inside the estimation window")
+    return lengths
 
 
 def estimate(
@@ -97,8 +102,10 @@ def estimate(
     Today's book is revalued under the rescaled returns of
     :func:`filtered_returns`; VaR is the k-th worst loss and ES the mean of
     the k worst, k = max(1, ⌊T(1 − c)⌋), scaled by √h. GARCH(1,1) with
-    normal innovations is fitted with ``arch`` on each instrument's full
-    history; with fewer than ``min_obs`` days or a failed fit, EWMA is used
+    normal innovations is fitted on each instrument's history (the last
+    ``fit_window`` days), all instruments at once for the zero mean and with
+    ``arch`` per instrument for the constant mean or where the batched fit
+    fails; with fewer than ``min_obs`` days or a failed fit, EWMA is used
     (``diagnostics['volatility']`` tells which, per instrument). The band
     treats the rescaled returns as iid and ignores parameter uncertainty.
 

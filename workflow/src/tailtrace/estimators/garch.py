@@ -1,4 +1,9 @@
-"""Conditional volatility of one return series: GARCH(1,1) with an EWMA fallback."""
+"""Conditional volatility of return series: GARCH(1,1) with an EWMA fallback.
+
+Zero-mean fits of many series go through one batched fit
+(:mod:`tailtrace.garch_batch`); a series it cannot fit, and every
+constant-mean fit, goes through ``arch`` one series at a time.
+"""
 
 from __future__ import annotations
 
@@ -8,9 +13,18 @@ from typing import Any
 
 import numpy as np
 
+from ..garch_batch import fit_garch11_batch
 from .ewma import ewma_variance_path
 
-__all__ = ["VolatilityFit", "DEFAULT_MIN_OBS", "DEFAULT_FALLBACK_DECAY", "fit_volatility", "fit_garch"]
+__all__ = [
+    "VolatilityFit",
+    "DEFAULT_MIN_OBS",
+    "DEFAULT_FALLBACK_DECAY",
+    "fit_volatility",
+    "fit_volatility_many",
+    "fit_garch",
+    "arch_rescale",
+]
 
 DEFAULT_MIN_OBS = 250
 DEFAULT_FALLBACK_DECAY = 0.94
@@ -115,6 +129,32 @@ def fit_garch(x: np.ndarray, mean: str = "zero") -> VolatilityFit:
     )
 
 
+def arch_rescale(y: np.ndarray) -> np.ndarray:
+    """The power of ten ``arch_model(..., rescale=True)`` multiplies each column of ``y`` by.
+
+    Notes
+    -----
+    arch scales by 10 (or 1/10) until the variance lies in [0.1, 10⁴)
+    (``ARCHModel._check_scale``, arch 8.0); kept so that the diagnostics of
+    a batched fit report parameters and log-likelihood in the units an
+    ``arch`` fit would.
+    """
+    var = np.var(np.asarray(y, dtype=float), axis=0)
+    rescale = np.ones_like(var)
+    # rare for percent returns (variance far from 1): arch's own loop, for identical factors
+    for j in np.flatnonzero((var > 0) & ~((var >= 0.1) & (var < 1e4))):
+        rescale[j] = _arch_rescale_loop(float(var[j]))
+    return rescale
+
+
+def _arch_rescale_loop(orig: float) -> float:
+    scale, rescale = orig, 1.0
+    while not 0.1 <= scale < 10000.0 and scale > 0:
+        rescale = rescale * 10 if scale < 1.0 else rescale / 10
+        scale = orig * rescale**2
+    return rescale
+
+
 def fit_volatility(
     x: np.ndarray,
     *,
@@ -140,6 +180,43 @@ def fit_volatility(
 
     Notes
     -----
+    The one-column case of :func:`fit_volatility_many`.
+    """
+    x = np.asarray(x, dtype=float)
+    return fit_volatility_many(x[:, None], mean=mean, min_obs=min_obs, fallback_decay=fallback_decay)[0]
+
+
+def fit_volatility_many(
+    x: np.ndarray,
+    *,
+    mean: str = "zero",
+    min_obs: int = DEFAULT_MIN_OBS,
+    fallback_decay: float = DEFAULT_FALLBACK_DECAY,
+) -> list[VolatilityFit]:
+    """:func:`fit_volatility` of every column of ``x``, with one batched zero-mean fit.
+
+    Parameters
+    ----------
+    x : (H, n) array of daily returns, all columns the same length
+    mean, min_obs, fallback_decay
+        As in :func:`fit_volatility`.
+
+    Returns
+    -------
+    list of VolatilityFit, one per column
+
+    Notes
+    -----
+    With a zero mean the columns with at least ``min_obs`` days and some
+    variation are fitted together by :func:`~tailtrace.garch_batch.fit_garch11_batch`
+    (the same likelihood, backcast and bounds as ``arch``); a column that
+    fit does not make usable (not converged, non-finite, α + β ≥ 1) goes to
+    :func:`fit_garch` and, if that fails too, to EWMA. Parameters are
+    reported as :func:`fit_garch` reports them: ω in percent², ``scale``
+    the factor arch's ``rescale=True`` would pick (:func:`arch_rescale`) and
+    the log-likelihood of the percent returns times that factor. The
+    constant mean always goes through :func:`fit_garch`.
+
     The fallback runs ``σ²_{t+1} = λσ²_t + (1 − λ)ε²_t`` seeded with the
     sample variance of ε (:func:`ewma.ewma_variance_path`). A series with no
     variation gets ``model = 'constant'`` and zero volatility.
@@ -147,6 +224,53 @@ def fit_volatility(
     if mean not in ("zero", "constant"):
         raise ValueError(f"GARCH mean must be 'zero' or 'constant', got {mean!r}")
     x = np.asarray(x, dtype=float)
+    if x.ndim != 2:
+        raise ValueError(f"fit_volatility_many needs an (H, n) array, got shape {x.shape}")
+    fits: list[VolatilityFit | None] = [None] * x.shape[1]
+    if mean == "zero" and x.shape[0] >= min_obs:
+        batch_cols = np.flatnonzero(np.any(np.abs(x) > 0, axis=0))
+        for j, fit in zip(batch_cols, _batched_fits(x[:, batch_cols])):
+            fits[j] = fit
+    return [
+        f if f is not None else _fit_one(x[:, j], mean, min_obs, fallback_decay) for j, f in enumerate(fits)
+    ]
+
+
+def _batched_fits(x: np.ndarray) -> list[VolatilityFit | None]:
+    """Zero-mean GARCH of each column from one batched fit; None where it is not usable."""
+    if x.shape[1] == 0:
+        return []
+    batch = fit_garch11_batch(x)
+    usable = batch.usable
+    scale = arch_rescale(_PERCENT * x)
+    unit = _PERCENT * scale  # data units -> the units an arch fit would report
+    loglik = batch.loglik - x.shape[0] * np.log(unit)
+    sigma = np.sqrt(batch.variance)
+    sigma_next = np.sqrt(batch.variance_next)
+    return [
+        VolatilityFit(
+            sigma=sigma[:, j],
+            sigma_next=float(sigma_next[j]),
+            mean=0.0,
+            model="garch",
+            params={
+                "mu": 0.0,
+                "omega": float(batch.omega[j]) * _PERCENT**2,
+                "alpha": float(batch.alpha[j]),
+                "beta": float(batch.beta[j]),
+                "persistence": float(batch.alpha[j] + batch.beta[j]),
+                "scale": float(scale[j]),
+                "loglik": float(loglik[j]),
+            },
+        )
+        if usable[j]
+        else None
+        for j in range(x.shape[1])
+    ]
+
+
+def _fit_one(x: np.ndarray, mean: str, min_obs: int, fallback_decay: float) -> VolatilityFit:
+    """One series through arch, then EWMA: the path of every series the batch leaves out."""
     centre = float(x.mean()) if mean == "constant" else 0.0
     resid = x - centre
     if not np.any(np.abs(resid) > 0):
