@@ -174,3 +174,29 @@ def test_reported_scale_and_loglik_are_those_of_an_arch_fit(sp500_log_returns, u
     assert fit.params["scale"] == direct.params["scale"]
     assert fit.params["loglik"] == pytest.approx(direct.params["loglik"], abs=1e-4)
     assert fit.params["omega"] == pytest.approx(direct.params["omega"], rel=1e-3)
+
+
+def _integrated_garch_series(seed: int, n: int = 1000) -> np.ndarray:
+    # simulated with alpha + beta = 1 exactly: the likelihood often peaks on the persistence edge
+    rng = np.random.default_rng(seed)
+    x, s2 = np.empty(n), 1e-4
+    for t in range(n):
+        x[t] = np.sqrt(s2) * rng.standard_normal()
+        s2 = 1e-7 + 0.1 * x[t] ** 2 + 0.9 * s2
+    return x
+
+
+def test_a_maximum_on_the_persistence_edge_is_kept_and_agrees_with_arch(monkeypatch):
+    from tailtrace.garch_batch import fit_garch11_batch
+
+    x = np.column_stack([_integrated_garch_series(s) for s in (0, 1, 9)])
+    batch = fit_garch11_batch(x)
+    assert batch.on_edge.all() and batch.edge_maximum.all() and not batch.converged.any()
+    direct = [garch.fit_garch(x[:, j]) for j in range(3)]  # reference: arch, one series at a time
+    monkeypatch.setattr(garch, "fit_garch", lambda *a, **k: pytest.fail("arch should not be needed"))
+    fits = garch.fit_volatility_many(x)
+    for fit, ref in zip(fits, direct):
+        # arch ends on the same edge (alpha + beta = 1 to ~1e-9); its forecast agrees to ~2e-5 here
+        assert ref.params["persistence"] == pytest.approx(1.0, abs=1e-6)
+        assert fit.model == "garch" and fit.params["persistence"] == pytest.approx(1.0 - 1e-6, abs=1e-12)
+        assert fit.sigma_next == pytest.approx(ref.sigma_next, rel=1e-4)

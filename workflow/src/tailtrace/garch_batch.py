@@ -46,6 +46,10 @@ class Garch11Batch:
         maximises arch's objective too).
     iterations : (N,) int array
         Newton/BHHH iterations used, both starts together.
+    on_edge : (N,) bool array
+        The optimiser met its tolerance with α + β held at the edge
+        1 − 1e-6 (the likelihood still rises towards integrated GARCH);
+        ``converged`` is False there.
     """
 
     omega: np.ndarray
@@ -56,13 +60,26 @@ class Garch11Batch:
     variance_next: np.ndarray
     converged: np.ndarray
     iterations: np.ndarray
+    on_edge: np.ndarray
+
+    @property
+    def finite(self) -> np.ndarray:
+        finite = np.isfinite(self.omega) & np.isfinite(self.loglik) & np.isfinite(self.variance_next)
+        return finite & np.all(np.isfinite(self.variance), axis=0)
 
     @property
     def usable(self) -> np.ndarray:
         """Converged, finite and stationary (α + β < 1): the fits a caller may keep."""
-        finite = np.isfinite(self.omega) & np.isfinite(self.loglik) & np.isfinite(self.variance_next)
-        finite &= np.all(np.isfinite(self.variance), axis=0)
-        return self.converged & finite & (self.alpha + self.beta < 1.0)
+        return self.converged & self.finite & (self.alpha + self.beta < 1.0)
+
+    @property
+    def edge_maximum(self) -> np.ndarray:
+        """Finite fits with their maximum on the α + β = 1 − 1e-6 edge and α > 1e-6.
+
+        α = 0 on the edge is a variance decaying from its start with no
+        response to news (a lone shock in a quiet series): not counted.
+        """
+        return self.on_edge & self.finite & (self.alpha > 1e-6)
 
 
 def garch11_backcast(x: np.ndarray) -> np.ndarray:
@@ -142,8 +159,8 @@ def fit_garch11_batch(x: np.ndarray, *, max_iter: int = 30, tol: float = 1e-10) 
     Scores and Hessian come from the recursions
     ``∂σ²_t/∂θ = (1, x²_{t−1}, σ²_{t−1}) + β ∂σ²_{t−1}/∂θ`` and
     ``∂²σ²_t/∂θ∂β = ∂σ²_{t−1}/∂θ + ∂σ²_{t−1}/∂θ e_β + β ∂²σ²_{t−1}/∂θ∂β``,
-    run over days with all series side by side. A fit on the edge
-    α + β = 1 − 1e-6 is returned but not ``converged``.
+    run over days with all series side by side. A maximum on the edge
+    α + β = 1 − 1e-6 is returned with ``on_edge`` set, not ``converged``.
 
     References
     ----------
@@ -168,6 +185,7 @@ def fit_garch11_batch(x: np.ndarray, *, max_iter: int = 30, tol: float = 1e-10) 
         "variance_next": np.full(N, np.nan),
         "converged": np.zeros(N, bool),
         "iterations": np.zeros(N, int),
+        "on_edge": np.zeros(N, bool),
     }
     scale = np.std(x, axis=0) if T else np.zeros(N)
     rms = np.sqrt(np.mean(x**2, axis=0)) if T else np.zeros(N)
@@ -178,9 +196,11 @@ def fit_garch11_batch(x: np.ndarray, *, max_iter: int = 30, tol: float = 1e-10) 
         cols = fittable[start : start + _CHUNK]
         s = scale[cols]
         y = x[:, cols] / s
-        omega, alpha, beta, converged, iterations = _fit_unit(y, max_iter, tol)
+        omega, alpha, beta, converged, on_edge, iterations = _fit_unit(y, max_iter, tol)
         s2 = _variance(y**2, garch11_backcast(y), omega, alpha, beta)
-        converged &= _within_arch_bounds(y, s2)
+        bounded = _within_arch_bounds(y, s2)
+        converged &= bounded
+        on_edge &= bounded
         ll = _loglik(y**2, s2) - T * np.log(s)
         out["omega"][cols] = omega * s**2
         out["alpha"][cols] = alpha
@@ -189,6 +209,7 @@ def fit_garch11_batch(x: np.ndarray, *, max_iter: int = 30, tol: float = 1e-10) 
         out["variance"][:, cols] = s2 * s**2
         out["variance_next"][cols] = (omega + alpha * y[-1] ** 2 + beta * s2[-1]) * s**2
         out["converged"][cols] = converged
+        out["on_edge"][cols] = on_edge
         out["iterations"][cols] = iterations
     return Garch11Batch(**out)
 
@@ -404,24 +425,24 @@ def _line_search(prob, z, ll, d, grad, lo, hi, pending) -> np.ndarray:
 def _fit_unit(y: np.ndarray, max_iter: int, tol: float):
     """Optimise the unit-variance columns of ``y`` from two starts, keep the higher maximum.
 
-    Returns ω, α, β, converged, iterations (of both starts together).
+    Returns ω, α, β, converged, on_edge, iterations (of both starts together).
     """
     n = y.shape[1]
     best, low = _starts(_Problem(y))
     second = np.flatnonzero(np.any(low != best, axis=0))
     cols = np.r_[np.arange(n), second]
     z0 = np.concatenate([best, low[:, second]], axis=1)
-    theta, ll, converged, iterations = _optimise(_Problem(y[:, cols]), z0, max_iter, tol)
+    theta, ll, converged, on_edge, iterations = _optimise(_Problem(y[:, cols]), z0, max_iter, tol)
     k = np.arange(n, cols.size)
     use = ll[k] > ll[second]  # the higher point, converged or not: a lower maximum is no answer
     pick = np.arange(n)
     pick[second[use]] = k[use]
     iterations[second] += iterations[k]
-    return (*theta[:, pick], converged[pick], iterations[:n])
+    return (*theta[:, pick], converged[pick], on_edge[pick], iterations[:n])
 
 
 def _optimise(prob: _Problem, z0: np.ndarray, max_iter: int, tol: float):
-    """Projected Newton/BHHH from ``z0``; returns θ, ℓ, converged, iterations."""
+    """Projected Newton/BHHH from ``z0``; returns θ, ℓ, converged, on the α + β edge, iterations."""
     n = z0.shape[1]
     lo, hi = _box(prob)
     z = np.clip(z0, lo, hi)
@@ -445,5 +466,5 @@ def _optimise(prob: _Problem, z0: np.ndarray, max_iter: int, tol: float):
         iterations[active[~done]] += 1
         # a series whose line search cannot improve stops, not converged
         active = active[~done & moved]
-    converged &= z[1] < hi[1]  # a maximum on the α + β edge is arch's to judge
-    return _theta(z), ll, converged, iterations
+    inside = z[1] < hi[1]
+    return _theta(z), ll, converged & inside, converged & ~inside, iterations
