@@ -337,7 +337,7 @@ from tailtrace.pipeline import ingest_instruments, ingest_prices
 t1 = time.perf_counter()
 ingest_instruments({str(data_dir / 'instruments.csv')!r}, {str(scratch / 'instruments.parquet')!r})
 t2 = time.perf_counter()
-ingest_prices({str(price)!r}, {str(scratch / 'instruments.parquet')!r}, {str(scratch / 'p.parquet')!r},
+ingest_prices({str(price)!r}, {str(data_dir / 'instruments.csv')!r}, {str(scratch / 'p.parquet')!r},
               {str(scratch / 'q.parquet')!r}, stale_days=5)
 t3 = time.perf_counter()
 print(json.dumps({{"import_s": t1 - t0, "ingest_s": t3 - t2, "heavy": [m for m in {HEAVY_MODULES!r} if m in sys.modules]}}))
