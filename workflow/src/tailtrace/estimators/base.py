@@ -17,6 +17,7 @@ __all__ = [
     "RiskEstimate",
     "Estimator",
     "linear_revalue",
+    "linear_pnl",
     "as_generator",
     "SCALING_NONE",
     "SCALING_SQRT_TIME",
@@ -48,7 +49,20 @@ def linear_revalue(values: np.ndarray) -> Callable[[np.ndarray, int], np.ndarray
     def revalue(log_shocks: np.ndarray, horizon_days: int = 1) -> np.ndarray:
         return values @ np.expm1(log_shocks).T
 
+    revalue.linear = True  # type: ignore[attr-defined]  # read by linear_pnl
     return revalue
+
+
+def linear_pnl(sample: "RiskSample") -> np.ndarray:
+    """(P, T) P&L of the holdings ``values`` under the window returns, ``values @ expm1(returns).T``.
+
+    For a linear book (``revalue`` from :func:`linear_revalue`) that is
+    ``sample.pnl`` itself, so it is not computed again; books with options
+    get their delta-equivalent P&L.
+    """
+    if getattr(sample.revalue, "linear", False):
+        return sample.pnl
+    return sample.values @ np.expm1(sample.returns).T
 
 
 @dataclass(frozen=True)

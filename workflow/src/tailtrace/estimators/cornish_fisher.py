@@ -192,7 +192,7 @@ def estimate(
     """
     include_mean = bool(options.get("include_mean", False))
     tail_prob = float(options.get("monotone_tail_prob", DEFAULT_MONOTONE_TAIL))
-    mu, sigma, _ = portfolio_moments(sample, include_mean)
+    mu, sigma, _ = portfolio_moments(sample, include_mean, covariance=False)
     skew, kurt = skew_kurtosis(sample.pnl)
     monotone = is_monotone(skew, kurt, confidences, tail_prob)
     if not monotone.all():

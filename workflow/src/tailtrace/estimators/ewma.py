@@ -6,7 +6,7 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 
-from .base import RiskEstimate, RiskSample
+from .base import RiskEstimate, RiskSample, linear_pnl
 from .parametric import normal_var_es
 from .scaling import sqrt_time_labels
 
@@ -56,9 +56,8 @@ def ewma_covariance(x: np.ndarray, decay: float) -> np.ndarray:
 
     References
     ----------
-    the 1996 industry technical document on EWMA volatility, as discussed in Hull, *Risk Management and
-    Financial Institutions*, volatility chapter;
-    Hull, *Risk Management and Financial Institutions*, volatility chapter.
+    Hull, *Risk Management and Financial Institutions*, volatility chapter
+    (EWMA with the 1996 industry default λ = 0.94).
     """
     x = np.asarray(x, dtype=float)
     w = ewma_weights(x.shape[0], decay)
@@ -93,20 +92,24 @@ def ewma_variance_path(x: np.ndarray, decay: float, seed_variance: np.ndarray) -
     return np.vstack([seed_variance[None, :], after])
 
 
-def ewma_moments(sample: RiskSample, decay: float, include_mean: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Daily P&L mean and EWMA st. dev. per portfolio, and the EWMA covariance.
+def ewma_moments(sample: RiskSample, decay: float, include_mean: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Daily P&L mean and EWMA st. dev. per portfolio.
 
     Returns
     -------
     mu, sigma : (P,) arrays
-    cov : (N, N) EWMA covariance of daily simple returns
+
+    Notes
+    -----
+    ``vᵀΣv`` with Σ = Σ_t w_t r_t r_tᵀ (:func:`ewma_covariance`) equals
+    ``Σ_t w_t (r_t·v)²``: the weighted square of the linear P&L series
+    (:func:`base.linear_pnl`), without the N × N matrix.
     """
-    simple = np.expm1(sample.returns)
-    cov = ewma_covariance(simple, decay)
-    variance = np.einsum("pi,pi->p", sample.values @ cov, sample.values)  # two operands: no P x N x N path
+    pnl = linear_pnl(sample)
+    variance = np.square(pnl) @ ewma_weights(pnl.shape[1], decay)
     sigma = np.sqrt(np.clip(variance, 0.0, None))
-    mu = sample.values @ simple.mean(axis=0) if include_mean else np.zeros(len(sample.values))
-    return mu, sigma, cov
+    mu = sample.values @ np.expm1(sample.returns).mean(axis=0) if include_mean else np.zeros(len(sample.values))
+    return mu, sigma
 
 
 def estimate(
@@ -137,7 +140,7 @@ def estimate(
     """
     decay = float(options.get("decay", DEFAULT_DECAY))
     include_mean = bool(options.get("include_mean", False))
-    mu, sigma, _ = ewma_moments(sample, decay, include_mean)
+    mu, sigma = ewma_moments(sample, decay, include_mean)
     var, es = normal_var_es(mu, sigma, confidences, horizons)
     weights = ewma_weights(sample.n_obs, decay)
     return RiskEstimate(

@@ -7,7 +7,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 from scipy.special import ndtri
 
-from .base import SCALING_NONE, SCALING_SQRT_TIME, RiskEstimate, RiskSample
+from .base import SCALING_NONE, SCALING_SQRT_TIME, RiskEstimate, RiskSample, linear_pnl
 
 __all__ = ["estimate", "normal_var_es", "portfolio_moments"]
 
@@ -65,14 +65,14 @@ def portfolio_moments(
     Notes
     -----
     σ_P² = vᵀΣv is computed as the ddof = 1 variance of the linear P&L
-    series ``R v`` (R the T × N simple returns): the same number, in
-    O(T·N·P) instead of O(N²·(T + P)).
+    series ``R v`` (R the T × N simple returns; :func:`base.linear_pnl`,
+    which a linear book already holds): the same number, in O(T·N·P) or
+    less instead of O(N²·(T + P)).
     """
-    simple = np.expm1(sample.returns)
     values = sample.values
-    linear_pnl = simple @ values.T  # (T, P)
-    variance = linear_pnl.var(axis=0, ddof=1)
+    variance = linear_pnl(sample).var(axis=1, ddof=1)
     sigma = np.sqrt(np.clip(variance, 0.0, None))
+    simple = np.expm1(sample.returns) if include_mean or covariance else None
     mu = values @ simple.mean(axis=0) if include_mean else np.zeros(len(values))
     cov = np.atleast_2d(np.cov(simple, rowvar=False, ddof=1)) if covariance else None
     return mu, sigma, cov

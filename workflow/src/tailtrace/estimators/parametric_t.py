@@ -277,7 +277,7 @@ def estimate(
     """
     include_mean = bool(options.get("include_mean", False))
     bounds = tuple(float(b) for b in options.get("dof_bounds", DOF_BOUNDS))
-    mu, sigma, _ = portfolio_moments(sample, include_mean)
+    mu, sigma, _ = portfolio_moments(sample, include_mean, covariance=False)
     nu, fitted, degenerate = portfolio_dof(sample.pnl, bounds)
     var, es = location_scale_var_es(mu, sigma, *t_factors(nu, confidences), horizons)
     return RiskEstimate(
