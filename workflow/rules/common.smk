@@ -148,8 +148,11 @@ def stress_settings():
 
 
 def extra_table_files():
-    """DuckDB table name -> Parquet file the aggregate stores besides the figures."""
-    files = {"sensitivities": result_path("scenarios", "sensitivities.parquet")}
+    """DuckDB table name -> Parquet file(s) the aggregate stores besides the figures."""
+    files = {
+        "sensitivities": result_path("scenarios", "sensitivities.parquet"),
+        "instrument_notes": [result_path("estimates", "notes", f"{m}.parquet") for m in config["methods"]],
+    }
     if config["contributions"]["methods"]:
         files["risk_contributions"] = result_path("contributions", "risk_contributions.parquet")
     if backtest_enabled():

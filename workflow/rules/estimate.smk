@@ -9,6 +9,7 @@ for _method in config["methods"]:
             **book_inputs(),
         output:
             figures=result_path("estimates", f"{_method}.parquet"),
+            notes=result_path("estimates", "notes", f"{_method}.parquet"),
             prov=prov_path(f"estimate_{_method}"),
         log:
             log_path(f"estimate_{_method}"),

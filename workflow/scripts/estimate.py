@@ -14,7 +14,7 @@ def main(smk) -> None:
             confidences=[float(c) for c in smk.params.confidences], horizons=[int(h) for h in smk.params.horizons],
             window_days=int(smk.params.window_days), options=parse_json_param(smk.params.options),
             seed=int(smk.params.seed), currency=smk.params.currency, positions_file=smk.params.positions_file,
-            instruments_file=smk.params.instruments_file)
+            instruments_file=smk.params.instruments_file, out_notes=smk.output.notes)
 
 
 main(snakemake)  # noqa: F821

@@ -84,7 +84,7 @@ def test_estimate_is_historical_on_filtered_returns(two_regime_sample):
     assert est.var[:, :, 0] == pytest.approx(var, rel=1e-12)
     assert est.es[:, :, 1] == pytest.approx(es * np.sqrt(10), rel=1e-12)
     assert np.all(est.var_lo <= est.var) and np.all(est.var <= est.var_hi)
-    assert {v["model"] for v in est.diagnostics["volatility"].values()} == {"garch"}
+    assert {v["model"] for v in est.instrument_notes.values()} == {"garch"}
 
 
 def _batch_never_converges(monkeypatch):
@@ -110,7 +110,7 @@ def test_failed_fit_falls_back_with_a_warning(two_regime_sample, monkeypatch):
     monkeypatch.setattr(garch, "fit_garch", broken)
     with pytest.warns(ConvergenceWarning, match="EWMA volatility used"):
         est = filtered_historical.estimate(two_regime_sample, [0.99], [1], options={})
-    notes = est.diagnostics["volatility"]["I1"]
+    notes = est.instrument_notes["I1"]
     assert notes["model"] == "ewma" and notes["reason"].startswith("fit_failed") and notes["decay"] == 0.94
 
 
@@ -119,7 +119,7 @@ def test_short_history_needs_no_warning(two_regime_sample):
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         est = filtered_historical.estimate(sample, [0.99], [1], options={"min_obs": 250})
-    assert est.diagnostics["volatility"]["I2"]["reason"] == "short_sample"
+    assert est.instrument_notes["I2"]["reason"] == "short_sample"
 
 
 def test_history_must_end_with_the_window(two_regime_sample):
@@ -136,7 +136,7 @@ def test_late_listed_instrument_is_fitted_on_its_own_history(two_regime_sample):
     sample = _sample(history, two_regime_sample.values)
     est = filtered_historical.estimate(sample, [0.99], [1], options={})
     fit = garch.fit_volatility(history[200:, 1])
-    assert est.diagnostics["volatility"]["I2"]["sigma_next"] == pytest.approx(fit.sigma_next, rel=1e-12)
+    assert est.instrument_notes["I2"]["sigma_next"] == pytest.approx(fit.sigma_next, rel=1e-12)
     history[-3, 0] = np.nan
     with pytest.raises(ValueError, match="instrument I1: history has missing returns inside the estimation window"):
         filtered_historical.filtered_returns(_sample(history, two_regime_sample.values), {})
@@ -200,3 +200,22 @@ def test_a_maximum_on_the_persistence_edge_is_kept_and_agrees_with_arch(monkeypa
         assert ref.params["persistence"] == pytest.approx(1.0, abs=1e-6)
         assert fit.model == "garch" and fit.params["persistence"] == pytest.approx(1.0 - 1e-6, abs=1e-12)
         assert fit.sigma_next == pytest.approx(ref.sigma_next, rel=1e-4)
+
+
+def test_per_instrument_fits_are_notes_not_part_of_every_figure_row(two_regime_sample):
+    import json
+
+    from tailtrace.figures import estimate_table, instrument_notes_table
+
+    est = filtered_historical.estimate(two_regime_sample, [0.99], [1], options={})
+    n = len(two_regime_sample.instruments)
+    assert est.diagnostics["volatility_models"] == {"garch": n} and est.diagnostics["volatility_fallbacks"] == {}
+    day = np.datetime64("2024-06-28")
+    notes = instrument_notes_table(est, as_of=day, method="filtered_historical")
+    assert notes.num_rows == n and notes.column("instrument").to_pylist() == list(two_regime_sample.instruments)
+    assert notes.column("model").to_pylist() == ["garch"] * n and notes.column("reason").null_count == n
+    first = json.loads(notes.column("notes")[0].as_py())
+    assert first == pytest.approx(est.instrument_notes[two_regime_sample.instruments[0]])
+    rows = estimate_table(est, as_of=day, portfolios=two_regime_sample.portfolios, method="filtered_historical",
+                          confidences=[0.99], horizons=[1], currency="EUR")
+    assert "alpha" not in rows.column("diagnostics")[0].as_py()

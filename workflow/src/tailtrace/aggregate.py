@@ -24,7 +24,7 @@ __all__ = ["FIGURE_KEY", "EXTRA_TABLES", "aggregate", "provenance_rows"]
 # Tables other steps produce, stored beside the figures and replaced by as_of.
 EXTRA_TABLES = (
     "sensitivities", "stress_results", "liquidity_es", "stressed_windows", "backtest_forecasts", "backtest_summary",
-    "risk_contributions",
+    "risk_contributions", "instrument_notes",
 )
 
 FIGURE_KEY = ("as_of", "portfolio", "method", "confidence", "horizon_days")

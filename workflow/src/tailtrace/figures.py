@@ -10,7 +10,7 @@ import pyarrow as pa
 
 from .estimators.base import RiskEstimate
 
-__all__ = ["FIGURE_SCHEMA", "estimate_table"]
+__all__ = ["FIGURE_SCHEMA", "INSTRUMENT_NOTES_SCHEMA", "estimate_table", "instrument_notes_table"]
 
 FIGURE_SCHEMA = pa.schema(
     [
@@ -29,6 +29,18 @@ FIGURE_SCHEMA = pa.schema(
         ("var_lo", pa.float64()),
         ("var_hi", pa.float64()),
         ("diagnostics", pa.string()),
+    ]
+)
+
+
+INSTRUMENT_NOTES_SCHEMA = pa.schema(
+    [
+        ("as_of", pa.date32()),
+        ("method", pa.string()),
+        ("instrument", pa.string()),
+        ("model", pa.string()),
+        ("reason", pa.string()),
+        ("notes", pa.string()),
     ]
 )
 
@@ -81,4 +93,32 @@ def estimate_table(
             "diagnostics": pa.array([diag] * n, type=pa.string()),
         },
         schema=FIGURE_SCHEMA,
+    )
+
+
+def instrument_notes_table(result: RiskEstimate, *, as_of: np.datetime64, method: str) -> pa.Table:
+    """One row per instrument of ``result.instrument_notes`` (columns :data:`INSTRUMENT_NOTES_SCHEMA`).
+
+    ``model`` and ``reason`` are lifted out of each instrument's notes when
+    present; ``notes`` holds all of them as JSON.
+    """
+    notes = result.instrument_notes
+    names = list(notes)
+    day = np.datetime64(as_of, "D")
+
+    def text(key: str) -> pa.Array:
+        values = [notes[n].get(key) for n in names]
+        return pa.array([None if v is None else str(v) for v in values], type=pa.string())
+
+    return pa.table(
+        {
+            "as_of": pa.array(np.full(len(names), day), type=pa.date32()),
+            "method": pa.array([method] * len(names), type=pa.string()),
+            "instrument": pa.array(names, type=pa.string()),
+            "model": text("model"),
+            "reason": text("reason"),
+            "notes": pa.array([json.dumps(notes[n], sort_keys=True, default=_json_default) for n in names],
+                              type=pa.string()),
+        },
+        schema=INSTRUMENT_NOTES_SCHEMA,
     )

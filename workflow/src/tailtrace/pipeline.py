@@ -228,10 +228,15 @@ def as_of_seed(seed: int, as_of: np.datetime64) -> np.random.Generator:
 def run_estimator(market_files: Mapping[str, str], exposures: str, positions: str, instruments: str, out: str, *,
                   method: str, confidences: Sequence[float], horizons: Sequence[int], window_days: int,
                   options: Mapping[str, Any], seed: int, currency: str, positions_file: str,
-                  instruments_file: str) -> dict[str, Any]:
-    """Run one method for every as_of in the exposures file."""
+                  instruments_file: str, out_notes: str | None = None) -> dict[str, Any]:
+    """Run one method for every as_of in the exposures file.
+
+    ``out`` gets the figures; ``out_notes`` (if given) the per-instrument
+    notes of the fits (:func:`figures.instrument_notes_table`), empty for
+    methods that have none.
+    """
     from .estimators.registry import get_estimator
-    from .figures import estimate_table
+    from .figures import INSTRUMENT_NOTES_SCHEMA, estimate_table, instrument_notes_table
     from .scenarios import build_sample
 
     estimator = get_estimator(method)
@@ -239,15 +244,18 @@ def run_estimator(market_files: Mapping[str, str], exposures: str, positions: st
     books = books_for(market, read_parquet(positions), read_parquet(instruments), run_dates(exposures),
                       base_currency=currency,
                       positions_file=positions_file, instruments_file=instruments_file)
-    tables, notes = [], {}
+    tables, fit_notes, notes = [], [], {}
     for book in books:
         sample = build_sample(market, book, window_days)
         result = estimator(sample, confidences, horizons, options=options, seed=as_of_seed(seed, book.as_of))
         tables.append(estimate_table(result, as_of=book.as_of, portfolios=sample.portfolios, method=method,
                                      confidences=confidences, horizons=horizons, currency=currency))
+        fit_notes.append(instrument_notes_table(result, as_of=book.as_of, method=method))
         notes[str(book.as_of)] = {"window_first": str(sample.dates[0]), "window_last": str(sample.dates[-1]),
                                   "n_obs": sample.n_obs, "instruments": list(sample.instruments)}
     write_parquet(pa.concat_tables(tables), out)
+    if out_notes is not None:
+        write_parquet(pa.concat_tables(fit_notes) if fit_notes else INSTRUMENT_NOTES_SCHEMA.empty_table(), out_notes)
     return notes
 
 

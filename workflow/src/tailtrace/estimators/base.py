@@ -142,7 +142,12 @@ class RiskEstimate:
     var_lo, var_hi : (P, C, H) float or None
         Confidence band of VaR (e.g. order-statistic or bootstrap), else None.
     diagnostics : dict
-        JSON-serialisable notes (fitted parameters, fallbacks used).
+        JSON-serialisable notes (fitted parameters, fallbacks used), stored
+        with every figure row: keep it small.
+    instrument_notes : dict
+        Instrument name -> JSON-serialisable notes of that instrument's
+        model fit (e.g. its volatility model), stored once per instrument
+        in the ``instrument_notes`` table rather than on every figure row.
     """
 
     var: np.ndarray
@@ -154,6 +159,7 @@ class RiskEstimate:
     var_lo: np.ndarray | None = None
     var_hi: np.ndarray | None = None
     diagnostics: Mapping[str, Any] = field(default_factory=dict)
+    instrument_notes: Mapping[str, Mapping[str, Any]] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         shape = np.shape(self.var)

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import dataclasses
 import warnings
+from collections import Counter
 from typing import Any, Mapping, Sequence
 
 import numpy as np
@@ -106,7 +108,8 @@ def estimate(
     ``fit_window`` days), all instruments at once for the zero mean and with
     ``arch`` per instrument for the constant mean or where the batched fit
     fails; with fewer than ``min_obs`` days or a failed fit, EWMA is used
-    (``diagnostics['volatility']`` tells which, per instrument). The band
+    (``instrument_notes`` tells which, per instrument, with the fitted
+    parameters; ``diagnostics`` counts the models and lists the fallbacks). The band
     treats the rescaled returns as iid and ignores parameter uncertainty.
 
     References
@@ -124,7 +127,7 @@ def estimate(
         warnings.warn(message, ConvergenceWarning, stacklevel=2)
     losses = -sample.revalue(rescaled, 1)
     var1, es1 = empirical_var_es(losses, confidences)
-    return sqrt_time_estimate(
+    estimate = sqrt_time_estimate(
         var1,
         es1,
         horizons,
@@ -134,9 +137,12 @@ def estimate(
             "k": {str(c): tail_count(sample.n_obs, c) for c in confidences},
             "band": "order_statistic",
             "band_level": level,
-            "volatility": {
-                name: {"model": f.model, "reason": f.reason, "sigma_next": f.sigma_next, **f.params}
-                for name, f in zip(sample.instruments, fits)
-            },
+            "volatility_models": dict(sorted(Counter(f.model for f in fits).items())),
+            "volatility_fallbacks": {name: f.reason for name, f in zip(sample.instruments, fits) if f.reason},
         },
     )
+    notes = {
+        name: {"model": f.model, "reason": f.reason, "sigma_next": f.sigma_next, **f.params}
+        for name, f in zip(sample.instruments, fits)
+    }
+    return dataclasses.replace(estimate, instrument_notes=notes)
