@@ -77,7 +77,7 @@ def _draw(n_panels: int, draw: Callable[[Any, int], None], *, height: float = _P
     from matplotlib.ticker import FuncFormatter
 
     with rc_context(_RC):
-        fig = Figure(figsize=(_WIDTH, 0.8 + height * n_panels), layout="constrained")
+        fig = Figure(figsize=(_WIDTH, 0.8 + height * n_panels))
         FigureCanvasAgg(fig)
         axes = fig.subplots(n_panels, 1, squeeze=False)[:, 0]
         entries: dict[str, Any] = {}
@@ -89,11 +89,47 @@ def _draw(n_panels: int, draw: Callable[[Any, int], None], *, height: float = _P
             handles, labels = ax.get_legend_handles_labels()
             for handle, label in zip(handles, labels):
                 entries.setdefault(label, handle)
-        if legend and entries:
-            fig.legend(list(entries.values()), list(entries), loc="outside upper center", ncols=min(5, len(entries)))
+        legend_rows = -(-len(entries) // 5) if legend and entries else 0
+        _fixed_layout(fig, axes, legend_rows)
+        if legend_rows:
+            fig.legend(list(entries.values()), list(entries), loc="upper center", ncols=min(5, len(entries)),
+                       bbox_to_anchor=(0.5, 1.0))
         buf = io.StringIO()
         fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
     return buf.getvalue()
+
+
+def _tick_labels(axis: Any) -> list[str]:
+    """The major tick labels the axis will draw."""
+    locs = [v for v in axis.get_major_locator()() if np.isfinite(v)]
+    formatter = axis.get_major_formatter()
+    formatter.set_locs(locs)
+    return [str(formatter(v, i)) for i, v in enumerate(locs)]
+
+
+def _fixed_layout(fig: Any, axes: Sequence[Any], legend_rows: int) -> None:
+    """Margins from the text the panels hold, in inches.
+
+    matplotlib's constrained layout measures every text of every panel
+    twice per chart (a third of the report's time); here only the distinct
+    y tick labels are measured, once, and the rest of the margins are fixed.
+    """
+    from matplotlib.font_manager import FontProperties
+
+    width, height = fig.get_size_inches()
+    renderer = fig.canvas.get_renderer()
+    font = FontProperties(size=_RC["font.size"])
+    labels = {label for ax in axes for label in _tick_labels(ax.yaxis)} or {"0"}
+    widest = max(renderer.get_text_width_height_descent(label, font, ismath=False)[0] for label in labels)
+    left = 0.2 + widest / fig.dpi
+    left += 0.22 if any(ax.get_ylabel() for ax in axes) else 0.0
+    bottom = 0.3 + (0.22 if any(ax.get_xlabel() for ax in axes) else 0.0)
+    top = 0.32 + 0.24 * legend_rows
+    gap = 0.32 + bottom  # the next panel's title below this one's tick labels and axis label
+    n = len(axes)
+    axes_height = max((height - top - bottom - gap * (n - 1)) / n, 0.5)
+    fig.subplots_adjust(left=min(left / width, 0.6), right=1.0 - 0.2 / width, bottom=bottom / height,
+                        top=1.0 - top / height, hspace=gap / axes_height)
 
 
 def _amount_axis(axis: Any) -> None:
@@ -133,12 +169,11 @@ def pnl_distribution_chart(
         var = float(marks.at[name, "var"]) if name in marks.index else np.nan
         es = float(marks.at[name, "es"]) if name in marks.index else np.nan
         tail = edges[1:] <= -var if np.isfinite(var) else np.zeros(counts.size, bool)
-        widths = np.diff(edges)
-        ax.bar(edges[:-1][~tail], counts[~tail], width=widths[~tail], align="edge", color=LIGHT, edgecolor="white",
-               linewidth=0.3, label="scenarios")
+        # one outline per part instead of a patch per bin: the same picture, drawn many times faster
+        ax.stairs(np.where(tail, 0, counts), edges, fill=True, color=LIGHT, label="scenarios")
         if tail.any():
-            ax.bar(edges[:-1][tail], counts[tail], width=widths[tail], align="edge", color=MUTED, edgecolor="white",
-                   linewidth=0.3, hatch="////", label="losses beyond VaR")
+            ax.stairs(np.where(tail, counts, 0), edges, fill=True, facecolor=MUTED, edgecolor="white", hatch="////",
+                      label="losses beyond VaR")
         if np.isfinite(var):
             ax.axvline(-var, color=ACCENT, linewidth=1.6, label=f"VaR {_short_amount(var)}")
         if np.isfinite(es):
