@@ -213,3 +213,22 @@ def test_plain_price_file_takes_the_typed_path_and_reads_like_the_strict_reader(
     monkeypatch.setattr(ingest, "_read_plain_prices", lambda p: None)
     strict, _ = read_price_file(path, ["EQ.A", "EQ.B"], today=TODAY)
     assert fast.equals(strict)
+
+
+def test_derived_books_of_the_decomposition_equal_their_dense_construction():
+    from tailtrace.decomposition import _derived_losses, _derived_values
+
+    rng = np.random.default_rng(11)
+    values = rng.normal(0, 1e5, (3, 6)) * (rng.random((3, 6)) < 0.6)
+    simple = rng.normal(0, 0.01, (40, 6))
+    pp, nn = np.nonzero(values)
+    K = len(pp)
+    alone = np.zeros((K, 6))
+    alone[np.arange(K), nn] = values[pp, nn]
+    without = values[pp].copy()
+    without[np.arange(K), nn] = 0.0
+    dense = np.vstack([values, alone, without])  # the plain way: every derived book in full
+    for rows in (slice(0, 3 + 2 * K), slice(2, 5), slice(3 + K - 1, 3 + 2 * K + 7)):
+        np.testing.assert_array_equal(_derived_values(values, pp, nn, rows), dense[rows])
+        losses = _derived_losses(-(values @ simple.T), np.ascontiguousarray(simple.T), pp, nn, values[pp, nn], rows)
+        np.testing.assert_allclose(losses, -(dense[rows] @ simple.T), rtol=1e-12, atol=1e-9)

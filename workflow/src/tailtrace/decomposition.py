@@ -263,17 +263,12 @@ def risk_contributions(
     K = len(pp)
     held = values[pp, nn]
     if method in ANALYTIC_METHODS:
-        alone = np.zeros((K, N))
-        alone[np.arange(K), nn] = held
-        without = values[pp].copy()
-        without[np.arange(K), nn] = 0.0
-        books = np.vstack([values, alone, without])
         names = list(sample.portfolios)
         names += [f"{sample.portfolios[p]}: {sample.instruments[n]} alone" for p, n in zip(pp, nn)]
         names += [f"{sample.portfolios[p]}: without {sample.instruments[n]}" for p, n in zip(pp, nn)]
         pnl_all = -_derived_losses(-sample.pnl, np.ascontiguousarray(simple.T), pp, nn, held, slice(0, P + 2 * K))
-        var_all, es_all = _estimate_in_chunks(estimator, sample, books, names, pnl_all, confidences, horizons, options,
-                                              int_seed)
+        var_all, es_all = _estimate_in_chunks(estimator, sample, values, pp, nn, names, pnl_all, confidences, horizons,
+                                              options, int_seed)
     else:
         # the method's own scenarios, built once, serve every derived book (one GARCH fit, one simulation)
         scenarios = KERNEL_METHODS[method](sample, horizons, options, int_seed)
@@ -437,10 +432,29 @@ def _scenario_figures(
     return var, es
 
 
+def _derived_values(values: np.ndarray, pp: np.ndarray, nn: np.ndarray, rows: slice) -> np.ndarray:
+    """Rows ``rows`` of the stacked holdings [books, each position alone, each book without it]."""
+    P, K = len(values), len(pp)
+    idx = np.arange(rows.start, min(rows.stop, P + 2 * K))
+    out = np.zeros((idx.size, values.shape[1]))
+    own = idx < P
+    out[own] = values[idx[own]]
+    alone = np.flatnonzero((idx >= P) & (idx < P + K))
+    k = idx[alone] - P
+    out[alone, nn[k]] = values[pp[k], nn[k]]
+    without = np.flatnonzero(idx >= P + K)
+    k = idx[without] - P - K
+    out[without] = values[pp[k]]
+    out[without, nn[k]] = 0.0
+    return out
+
+
 def _estimate_in_chunks(
     estimator: Callable[..., RiskEstimate],
     sample: RiskSample,
-    books: np.ndarray,
+    values: np.ndarray,
+    pp: np.ndarray,
+    nn: np.ndarray,
     names: Sequence[str],
     pnl: np.ndarray,
     confidences: Sequence[float],
@@ -448,11 +462,12 @@ def _estimate_in_chunks(
     options: Mapping[str, Any],
     seed: int,
 ) -> tuple[np.ndarray, np.ndarray]:
-    rows = max(1, _CELLS_PER_CALL // max(sample.n_obs, 1))
+    # chunks bound memory (dense holdings of the derived books are built chunk by chunk); each call is vectorised
+    rows = max(1, min(_CELLS_PER_CALL // max(sample.n_obs, 1), _CELLS_PER_CALL // max(values.shape[1], 1)))
     parts = []
-    for start in range(0, len(books), rows):  # chunks bound memory; each call is vectorised
+    for start in range(0, len(names), rows):
         chunk = slice(start, start + rows)
-        stack = stacked_books(sample, books[chunk], names[chunk], pnl[chunk])
+        stack = stacked_books(sample, _derived_values(values, pp, nn, chunk), names[chunk], pnl[chunk])
         parts.append(estimator(stack, confidences, horizons, options=options, seed=seed))
     return np.concatenate([e.var for e in parts]), np.concatenate([e.es for e in parts])
 
