@@ -486,7 +486,7 @@ def main(argv: Sequence[str] | None = None) -> int:
               f"{cmp['max_abs_diff']:.3g} (absolute, base currency), {cmp['max_rel_diff']:.3g} (relative)")
         bt = cmp["backtest"]
         if bt is None:
-            print(f"  {key:<9} backtest: no backtest_summary table in the risk database (backtest rule not wired yet); "
+            print(f"  {key:<9} backtest: no backtest_summary table in the risk database (backtest disabled?); "
                   "exception counts not compared")
         else:
             print(f"  {key:<9} backtest: {bt['compared']} of {bt['series']} exception counts compared, "
