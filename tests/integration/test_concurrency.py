@@ -104,8 +104,9 @@ def test_two_cold_runs_are_bitwise_identical_whatever_the_threads_and_job_order(
     assert len(a.figures) == 2 * 4 * 3 * 2
     assert a.figures == b.figures  # every column, run_id included, floats compared as hex
     estimates = sorted(k for k in a.parquet if k.startswith("estimates/"))
-    assert estimates == [f"estimates/{m}.parquet" for m in
-                         sorted(["parametric_normal", "historical", "historical_overlapping", "monte_carlo"])]
+    methods = sorted(["parametric_normal", "historical", "historical_overlapping", "monte_carlo"])
+    assert estimates == sorted([f"estimates/{m}.parquet" for m in methods]
+                               + [f"estimates/notes/{m}.parquet" for m in methods])  # figures and fit notes
     assert len(a.parquet) > len(estimates)  # prices, market, scenarios too
     assert a.parquet == b.parquet
 

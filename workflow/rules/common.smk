@@ -192,10 +192,15 @@ def slow_method_priority(method):
     return 10 if method in SLOW_METHODS else 0
 
 
-def book_inputs():
-    """Inputs of every step that rebuilds the day's books: market data, as_of dates, positions, instruments."""
+def book_inputs(local=True):
+    """Inputs of every step that rebuilds the day's books: market data, as_of dates, positions, instruments.
+
+    ``local=False`` leaves out the local-currency prices, which the estimators
+    never read (each input is also hashed into the step record).
+    """
+    market = {k: v for k, v in market_outputs().items() if local or not k.startswith("local")}
     return {
-        **market_outputs(),
+        **market,
         "exposures": rules.build_scenarios.output.exposures,
         "positions": rules.ingest_positions.output.positions,
         "instruments": rules.ingest_instruments.output.instruments,

@@ -6,7 +6,7 @@ for _method in config["methods"]:
         name:
             f"estimate_{_method}"
         input:
-            **book_inputs(),
+            **book_inputs(local=False),
         output:
             figures=result_path("estimates", f"{_method}.parquet"),
             notes=result_path("estimates", "notes", f"{_method}.parquet"),
