@@ -165,6 +165,19 @@ def stacked_books(sample: RiskSample, values: np.ndarray, names: Sequence[str],
     )
 
 
+def _derived_rows(P: int, K: int, rows: slice):
+    """Split rows ``rows`` of the stacked books [P books, K positions alone, K books without one].
+
+    Returns the number of rows and, per part, the output rows and the index
+    into that part (book p, or held position k).
+    """
+    idx = np.arange(rows.start, min(rows.stop, P + 2 * K))
+    own = np.flatnonzero(idx < P)
+    alone = np.flatnonzero((idx >= P) & (idx < P + K))
+    without = np.flatnonzero(idx >= P + K)
+    return idx.size, (own, idx[own]), (alone, idx[alone] - P), (without, idx[without] - P - K)
+
+
 def _derived_losses(losses: np.ndarray, simple_t: np.ndarray, pp: np.ndarray, nn: np.ndarray, held: np.ndarray,
                     rows: slice) -> np.ndarray:
     """Rows ``rows`` of the stacked books' losses [books, each position alone, each book without it].
@@ -174,17 +187,11 @@ def _derived_losses(losses: np.ndarray, simple_t: np.ndarray, pp: np.ndarray, nn
     without it ``L_{p_k} + v_k x_{n_k}``; O(K·S) instead of the O(K·N·S) of
     revaluing 2K dense books.
     """
-    P, K = len(losses), len(pp)
-    idx = np.arange(rows.start, min(rows.stop, P + 2 * K))
-    out = np.empty((idx.size, losses.shape[1]))
-    own = idx < P
-    out[own] = losses[idx[own]]
-    alone = (idx >= P) & (idx < P + K)
-    k = idx[alone] - P
-    out[alone] = -(held[k, None] * simple_t[nn[k]])
-    without = idx >= P + K
-    k = idx[without] - P - K
-    out[without] = losses[pp[k]] + held[k, None] * simple_t[nn[k]]
+    n, (own, p), (alone, ka), (without, kw) = _derived_rows(len(losses), len(pp), rows)
+    out = np.empty((n, losses.shape[1]))
+    out[own] = losses[p]
+    out[alone] = -(held[ka, None] * simple_t[nn[ka]])
+    out[without] = losses[pp[kw]] + held[kw, None] * simple_t[nn[kw]]
     return out
 
 
@@ -261,14 +268,12 @@ def risk_contributions(
     # needs 400 books, not 4,000 (the others' stand-alone and incremental figures are zero)
     pp, nn = np.nonzero(values)
     K = len(pp)
-    held = values[pp, nn]
     if method in ANALYTIC_METHODS:
         names = list(sample.portfolios)
         names += [f"{sample.portfolios[p]}: {sample.instruments[n]} alone" for p, n in zip(pp, nn)]
         names += [f"{sample.portfolios[p]}: without {sample.instruments[n]}" for p, n in zip(pp, nn)]
-        pnl_all = -_derived_losses(-sample.pnl, np.ascontiguousarray(simple.T), pp, nn, held, slice(0, P + 2 * K))
-        var_all, es_all = _estimate_in_chunks(estimator, sample, values, pp, nn, names, pnl_all, confidences, horizons,
-                                              options, int_seed)
+        var_all, es_all = _estimate_in_chunks(estimator, sample, simple, pp, nn, names, confidences, horizons, options,
+                                              int_seed)
     else:
         # the method's own scenarios, built once, serve every derived book (one GARCH fit, one simulation)
         scenarios = KERNEL_METHODS[method](sample, horizons, options, int_seed)
@@ -434,40 +439,36 @@ def _scenario_figures(
 
 def _derived_values(values: np.ndarray, pp: np.ndarray, nn: np.ndarray, rows: slice) -> np.ndarray:
     """Rows ``rows`` of the stacked holdings [books, each position alone, each book without it]."""
-    P, K = len(values), len(pp)
-    idx = np.arange(rows.start, min(rows.stop, P + 2 * K))
-    out = np.zeros((idx.size, values.shape[1]))
-    own = idx < P
-    out[own] = values[idx[own]]
-    alone = np.flatnonzero((idx >= P) & (idx < P + K))
-    k = idx[alone] - P
-    out[alone, nn[k]] = values[pp[k], nn[k]]
-    without = np.flatnonzero(idx >= P + K)
-    k = idx[without] - P - K
-    out[without] = values[pp[k]]
-    out[without, nn[k]] = 0.0
+    n, (own, p), (alone, ka), (without, kw) = _derived_rows(len(values), len(pp), rows)
+    out = np.zeros((n, values.shape[1]))
+    out[own] = values[p]
+    out[alone, nn[ka]] = values[pp[ka], nn[ka]]
+    out[without] = values[pp[kw]]
+    out[without, nn[kw]] = 0.0
     return out
 
 
 def _estimate_in_chunks(
     estimator: Callable[..., RiskEstimate],
     sample: RiskSample,
-    values: np.ndarray,
+    simple: np.ndarray,
     pp: np.ndarray,
     nn: np.ndarray,
     names: Sequence[str],
-    pnl: np.ndarray,
     confidences: Sequence[float],
     horizons: Sequence[int],
     options: Mapping[str, Any],
     seed: int,
 ) -> tuple[np.ndarray, np.ndarray]:
-    # chunks bound memory (dense holdings of the derived books are built chunk by chunk); each call is vectorised
+    # chunks bound memory (holdings and P&L of the derived books are built chunk by chunk); each call is vectorised
+    values = np.asarray(sample.values, dtype=float)
+    held, simple_t, losses = values[pp, nn], np.ascontiguousarray(simple.T), -sample.pnl
     rows = max(1, min(_CELLS_PER_CALL // max(sample.n_obs, 1), _CELLS_PER_CALL // max(values.shape[1], 1)))
     parts = []
     for start in range(0, len(names), rows):
         chunk = slice(start, start + rows)
-        stack = stacked_books(sample, _derived_values(values, pp, nn, chunk), names[chunk], pnl[chunk])
+        pnl = -_derived_losses(losses, simple_t, pp, nn, held, chunk)
+        stack = stacked_books(sample, _derived_values(values, pp, nn, chunk), names[chunk], pnl)
         parts.append(estimator(stack, confidences, horizons, options=options, seed=seed))
     return np.concatenate([e.var for e in parts]), np.concatenate([e.es for e in parts])
 
