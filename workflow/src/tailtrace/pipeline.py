@@ -154,7 +154,7 @@ def matrix_key(key: str) -> str:
 def _market_for_books(market_files: Mapping[str, str], *, local: bool = True) -> MarketData:
     from .market import market_from_matrices, market_from_tables
 
-    keys = ("local", "base", "observed", "returns") if local else ("base", "observed", "returns")
+    keys = MATRIX_KEYS if local else tuple(k for k in MATRIX_KEYS if k != "local")
     if all(matrix_key(k) in market_files for k in keys):
         with pq.ParquetFile(market_files["base"]) as base:
             names = base.schema_arrow.names

@@ -206,12 +206,9 @@ def garch_variance_extend(fit: GarchFit, last_x: float, x_after: np.ndarray) -> 
         ``sigma^2`` for the first day after the fit sample and the next m
         days, with the parameters held fixed (no refit).
     """
-    from scipy.signal import lfilter
-
     x_prev = np.concatenate([[last_x], np.asarray(x_after, dtype=float)])
-    drive = fit.omega + fit.alpha * x_prev**2
-    zi = np.array([fit.beta * fit.variance[-1]])
-    return lfilter([1.0], [1.0, -fit.beta], drive, zi=zi)[0]
+    omega, alpha, beta, last = (np.array([v]) for v in (fit.omega, fit.alpha, fit.beta, fit.variance[-1]))
+    return garch_variance_extend_many(omega, alpha, beta, last, x_prev[None, :])[0]  # one series of the batch form
 
 
 def garch_variance_extend_many(
